@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -73,16 +74,25 @@ def open_storage(
             raise StudyNotFound(f"{path}: no study database here; check the path")
         path.parent.mkdir(parents=True, exist_ok=True)
     try:
-        storage = optuna.storages.RDBStorage(
-            url,
-            engine_kwargs=engine_options(url),
-            heartbeat_interval=HEARTBEAT_SECONDS if heartbeat else None,
-            grace_period=GRACE_SECONDS if heartbeat else None,
-            heartbeat_stale_trial_callback=stale_callback,
-        )
+        with warnings.catch_warnings():  # heartbeats are "experimental" in optuna 5
+            warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+            storage = optuna.storages.RDBStorage(
+                url,
+                engine_kwargs=engine_options(url),
+                heartbeat_interval=HEARTBEAT_SECONDS if heartbeat else None,
+                grace_period=GRACE_SECONDS if heartbeat else None,
+                heartbeat_stale_trial_callback=stale_callback,
+            )
     except (sa.exc.SQLAlchemyError, ImportError, ValueError) as error:
         raise StorageFailure(f"cannot open storage {redact(url)}: {redact(str(error))}") from None
     if is_sqlite(url):
         sa.event.listen(storage.engine, "connect", _set_sqlite_pragmas)
         storage.engine.dispose()  # reconnect so that every pooled connection gets the pragmas
     return storage
+
+
+def engine_of(study: optuna.Study) -> sa.Engine:
+    """The SQLAlchemy engine under a study (optuna wraps RDB storage in a cache layer)."""
+    storage: Any = study._storage
+    storage = getattr(storage, "_backend", storage)
+    return storage.engine

@@ -1,0 +1,151 @@
+"""The command line: parse, call the library, turn SweeperError into a message and exit code."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from sweeper.errors import Interrupted, SweeperError
+from sweeper.storage import redact
+
+
+class SweeperGroup(click.Group):
+    """Runs a command and maps our errors to one line on stderr and an exit code, once."""
+
+    def invoke(self, ctx: click.Context) -> object:
+        try:
+            return super().invoke(ctx)
+        except SweeperError as error:
+            click.echo(f"sweeper: error: {redact(str(error))}", err=True)
+            ctx.exit(error.exit_code)
+        except KeyboardInterrupt:
+            click.echo("sweeper: interrupted", err=True)
+            ctx.exit(Interrupted.exit_code)
+        return None
+
+
+@click.group(cls=SweeperGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(package_name="sweeper")
+def main() -> None:
+    """Hyperparameter sweeps for recurrent networks (unroll, width, clipping, learning rate)."""
+
+
+@main.command()
+@click.argument("specs", nargs=-1, required=True, type=click.Path(dir_okay=False))
+def check(specs: tuple[str, ...]) -> None:
+    """Validate spec files; print the search space and the planned budget."""
+    from sweeper.describe import describe_spec
+    from sweeper.spec import load_spec
+
+    for path in specs:
+        click.echo(describe_spec(load_spec(path)))
+
+
+@main.command()
+@click.argument("spec_path", metavar="SPEC", type=click.Path(dir_okay=False))
+@click.option("--workers", type=int, help="Worker processes (overrides study.workers).")
+@click.option("--trials", type=int, help="Trial budget (overrides study.trials).")
+@click.option("--storage", help="Study database: a .db path or a storage URL.")
+@click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Summary path.")
+def run(
+    spec_path: str,
+    workers: int | None,
+    trials: int | None,
+    storage: str | None,
+    report_path: str | None,
+) -> None:
+    """Create the study or continue it, run it to its budget, write the summary."""
+    from sweeper.launcher import run_sweep
+    from sweeper.spec import load_spec
+
+    spec = load_spec(spec_path).with_overrides(trials=trials, workers=workers, storage=storage)
+    result = run_sweep(spec)
+    _finish(result, report_path)
+
+
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+@click.option("--workers", type=int, help="Worker processes (default: as stored).")
+@click.option("--trials", type=int, help="New trial budget (default: as stored).")
+@click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Summary path.")
+def resume(
+    study_location: str, workers: int | None, trials: int | None, report_path: str | None
+) -> None:
+    """Continue an interrupted study from the spec stored inside it."""
+    from sweeper.launcher import run_sweep
+    from sweeper.study import load_existing
+
+    _study, spec = load_existing(study_location)
+    spec = spec.with_overrides(trials=trials, workers=workers, storage=study_location)
+    _finish(run_sweep(spec), report_path)
+
+
+def _finish(result: object, report_path: str | None) -> None:
+    from sweeper.launcher import SweepResult
+
+    assert isinstance(result, SweepResult)
+    if result.queued == 0 and result.ran == 0:
+        click.echo(
+            f"budget already met ({result.snapshot.counts.finished} finished trials); "
+            "raise --trials to run more"
+        )
+    click.echo(result.snapshot.line())
+    output = Path(report_path) if report_path else default_report_path(result.location)
+    try:
+        from sweeper.report import build_report
+    except ImportError:  # the summary is optional until its package is installed
+        return
+    written = build_report(result.location, output, result.study_name)
+    click.echo(f"summary: {written}")
+
+
+def default_report_path(location: str) -> Path:
+    """Beside the study database (or in runs/ for a server URL)."""
+    from sweeper.storage import sqlite_path, storage_url
+
+    path = sqlite_path(storage_url(location))
+    if path is None:
+        return Path("runs") / "summary.html"
+    return path.with_suffix(".html")
+
+
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+def status(study_location: str) -> None:
+    """Trials by state, best so far, running trials with epoch and age, ETA."""
+    from sweeper.describe import status_table
+    from sweeper.progress import snapshot
+    from sweeper.study import budget_of, load_existing
+
+    study, spec = load_existing(study_location)
+    snap = snapshot(study, budget_of(spec), spec.study.workers)
+    click.echo(status_table(snap))
+
+
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+@click.option("-o", "--output", type=click.Path(dir_okay=False), help="Where to write the page.")
+def report(study_location: str, output: str | None) -> None:
+    """Write the static HTML summary of a study."""
+    from sweeper.report import build_report
+
+    path = Path(output) if output else default_report_path(study_location)
+    click.echo(f"summary: {build_report(study_location, path)}")
+
+
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+@click.option("--format", "fmt", type=click.Choice(["csv", "json", "sqlite"]), required=True)
+@click.option("-o", "--output", type=click.Path(), required=True, help="Output path.")
+def export(study_location: str, fmt: str, output: str) -> None:
+    """Write flat tables of trials, parameters and epochs."""
+    from sweeper.report import export_study
+
+    for path in export_study(study_location, Path(output), fmt):  # type: ignore[arg-type]
+        click.echo(str(path))
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

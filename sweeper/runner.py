@@ -1,0 +1,135 @@
+"""One optuna trial end to end: draw parameters, train (or call the plugin), record, report."""
+
+from __future__ import annotations
+
+import math
+import os
+import socket
+import traceback
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import optuna
+import sqlalchemy as sa
+
+from sweeper import telemetry
+from sweeper.params import TrialParams
+from sweeper.seeds import trial_seed
+from sweeper.space import draw
+from sweeper.spec import Spec
+from sweeper.tasks.base import Task
+from sweeper.telemetry import EpochRecord
+
+Objective = Callable[[dict[str, Any], Callable[[int, float], None]], float]
+TRACEBACK_LINES = 12
+
+
+def worker_name(index: int) -> str:
+    return f"{socket.gethostname()}:{os.getpid()}:w{index}"
+
+
+@dataclass
+class TrialContext:
+    """What every trial of one worker shares."""
+
+    spec: Spec
+    engine: sa.Engine
+    study_name: str
+    worker: str
+    task: Task | None = None
+    objective: Objective | None = None
+    should_stop: Callable[[], bool] = field(default=lambda: False)
+
+
+def origin_number(trial: optuna.Trial) -> int:
+    """The trial this one retries (its seed and checkpoint), or its own number."""
+    system = trial.storage.get_trial_system_attrs(trial._trial_id)
+    original = system.get("failed_trial")
+    return int(original) if original is not None else trial.number
+
+
+def objective_value(spec: Spec, record: EpochRecord) -> float:
+    return record.valid_metric if spec.study.objective == "valid_metric" else record.valid_loss
+
+
+def worst_value(spec: Spec) -> float:
+    return math.inf if spec.study.goal == "minimize" else -math.inf
+
+
+def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:
+    """Run one trial; raise optuna.TrialPruned when stopped early or diverged."""
+    params = draw(trial, ctx.spec.search)
+    origin = origin_number(trial)
+    if origin != trial.number:
+        trial.set_user_attr("retry_of", origin)
+    seed = trial_seed(ctx.spec.study.seed, origin)
+    trial.set_user_attr("seed", seed)
+    trial.set_user_attr("worker", ctx.worker)
+    if ctx.spec.is_objective_plugin:
+        return _run_objective(trial, ctx, params)
+    return _run_training(trial, ctx, params, seed)
+
+
+def _run_training(trial: optuna.Trial, ctx: TrialContext, params: dict, seed: int) -> float:
+    from sweeper.train import TrialRun, divergence_reason
+
+    assert ctx.task is not None, "a training trial needs its task"
+    training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
+    trial.set_user_attr("training", training.as_dict())
+    run = TrialRun(ctx.task, training, seed)
+    compute = 0.0
+    value = math.nan
+    for epoch in range(1, ctx.spec.training.epochs + 1):
+        # train one epoch, then record it before anything can stop the trial
+        record = run.run_epoch(ctx.should_stop)
+        telemetry.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
+        compute += record.seconds
+        trial.set_user_attr("epochs", epoch)
+        trial.set_user_attr("compute_seconds", compute)
+        # diverged: the sampler must learn that this region is bad
+        reason = divergence_reason(record)
+        if reason is not None:
+            trial.set_user_attr("diverged", True)
+            trial.set_user_attr("end_reason", reason)
+            trial.report(worst_value(ctx.spec), epoch)
+            raise optuna.TrialPruned(reason)
+        value = objective_value(ctx.spec, record)
+        trial.report(value, epoch)
+        if epoch < ctx.spec.training.epochs and trial.should_prune():
+            reason = f"stopped early after epoch {epoch}"
+            trial.set_user_attr("end_reason", reason)
+            raise optuna.TrialPruned(reason)
+    trial.set_user_attr("end_reason", "completed")
+    return value
+
+
+def _plugin_record(epoch: int, value: float) -> EpochRecord:
+    nan = math.nan
+    return EpochRecord(epoch, nan, value, nan, nan, nan, nan, nan, nan, 0, 0, nan, nan)
+
+
+def _run_objective(trial: optuna.Trial, ctx: TrialContext, params: dict) -> float:
+    assert ctx.objective is not None, "an objective-plugin trial needs its function"
+
+    def report(epoch: int, value: float) -> None:
+        telemetry.write_epoch(
+            ctx.engine, ctx.study_name, trial.number, _plugin_record(epoch, value)
+        )
+        trial.set_user_attr("epochs", epoch)
+        trial.report(float(value), epoch)
+        if trial.should_prune():
+            reason = f"stopped early after step {epoch}"
+            trial.set_user_attr("end_reason", reason)
+            raise optuna.TrialPruned(reason)
+
+    value = float(ctx.objective(dict(params), report))
+    trial.set_user_attr("end_reason", "completed")
+    return value
+
+
+def failure_attrs(error: BaseException) -> dict[str, str]:
+    """Type, message and the last lines of the traceback of a failed trial."""
+    lines = traceback.format_exception(type(error), error, error.__traceback__)
+    excerpt = "".join(lines).splitlines()[-TRACEBACK_LINES:]
+    return {"type": type(error).__name__, "message": str(error), "traceback": "\n".join(excerpt)}

@@ -1,0 +1,231 @@
+"""Open, create or continue a study on a storage URL; sampler, pruner and the trial queue."""
+
+from __future__ import annotations
+
+import json
+import warnings
+from collections import Counter
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import optuna
+from optuna.trial import FrozenTrial, TrialState
+
+from sweeper import telemetry
+from sweeper.errors import SpecChanged, StudyNotFound
+from sweeper.seeds import sampler_seed
+from sweeper.space import grid_points
+from sweeper.spec import MUTABLE_KEYS, Spec, parse_spec
+from sweeper.storage import open_storage, redact
+
+FINISHED = (TrialState.COMPLETE, TrialState.PRUNED)
+STOP_ATTR = "stop_request"
+
+
+def quiet_optuna() -> None:
+    """optuna logs every trial and warns about its experimental features; we report ourselves."""
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+
+
+def make_sampler(
+    spec: Spec, worker_index: int, trials_in_study: int
+) -> optuna.samplers.BaseSampler:
+    seed = sampler_seed(spec.study.seed, worker_index, trials_in_study)
+    name = spec.study.sampler
+    if name == "tpe":
+        # Constant liar keeps parallel workers from piling onto the same promising point.
+        return optuna.samplers.TPESampler(seed=seed, multivariate=True, constant_liar=True)
+    if name == "sobol":
+        # One shared seed: the sequence is indexed by trial number, so workers never collide.
+        return optuna.samplers.QMCSampler(qmc_type="sobol", scramble=True, seed=spec.study.seed)
+    # "random", and "grid", whose points arrive fully fixed through the queue.
+    return optuna.samplers.RandomSampler(seed=seed)
+
+
+def make_pruner(spec: Spec) -> optuna.pruners.BasePruner:
+    rule = spec.stopping
+    pruner: optuna.pruners.BasePruner
+    if rule.rule == "median":
+        pruner = optuna.pruners.MedianPruner(
+            n_startup_trials=rule.warmup_trials, n_warmup_steps=rule.min_epochs
+        )
+    elif rule.rule == "asha":
+        pruner = optuna.pruners.SuccessiveHalvingPruner(
+            min_resource=rule.min_epochs, reduction_factor=rule.reduction
+        )
+    elif rule.rule == "hyperband":
+        pruner = optuna.pruners.HyperbandPruner(
+            min_resource=rule.min_epochs,
+            max_resource=spec.training.epochs,
+            reduction_factor=rule.reduction,
+        )
+    else:
+        return optuna.pruners.NopPruner()
+    if rule.patience > 0:
+        pruner = optuna.pruners.PatientPruner(pruner, patience=rule.patience)
+    return pruner
+
+
+def spec_attrs(spec: Spec, baseline: dict[str, Any] | None, task: str, description: str) -> dict:
+    return {
+        "spec_text": spec.text,
+        "spec_source": str(Path(spec.source).resolve()) if spec.source else "",
+        "spec_hash": spec.digest(),
+        "spec_data": json.dumps(spec.canonical(), sort_keys=True, default=str),
+        "task": task,
+        "task_description": description,
+        "baseline": baseline,
+        "objective": "value" if spec.is_objective_plugin else spec.study.objective,
+        "budget": spec.study.trials,
+        "workers": spec.study.workers,
+    }
+
+
+def changed_keys(old: dict[str, Any], new: dict[str, Any], prefix: str = "") -> list[str]:
+    keys: list[str] = []
+    for key in sorted(set(old) | set(new)):
+        dotted = f"{prefix}{key}"
+        a, b = old.get(key), new.get(key)
+        if isinstance(a, dict) and isinstance(b, dict):
+            keys += changed_keys(a, b, f"{dotted}.")
+        elif a != b:
+            keys.append(dotted)
+    return keys
+
+
+def create_or_continue(
+    storage: optuna.storages.RDBStorage, spec: Spec, attrs: dict
+) -> optuna.Study:
+    """The study named in the spec; a different spec under the same name is refused."""
+    names = {summary.study_name for summary in optuna.get_all_study_summaries(storage)}
+    direction = spec.study.goal
+    study = optuna.create_study(
+        storage=storage, study_name=spec.study.name, direction=direction, load_if_exists=True
+    )
+    if spec.study.name in names:
+        _refuse_changed_spec(study, spec)
+    telemetry.ensure_tables(storage.engine)
+    for key, value in attrs.items():
+        study.set_user_attr(key, value)
+    study.set_user_attr(STOP_ATTR, None)
+    return study
+
+
+def _refuse_changed_spec(study: optuna.Study, spec: Spec) -> None:
+    stored = study.user_attrs.get("spec_hash")
+    if stored is None or stored == spec.digest():
+        return
+    old = json.loads(study.user_attrs.get("spec_data", "{}"))
+    new = json.loads(json.dumps(spec.canonical(), sort_keys=True, default=str))
+    changed = [k for k in changed_keys(old, new) if k not in MUTABLE_KEYS]
+    raise SpecChanged(
+        f"{spec.source}: the study '{spec.study.name}' was started with a different spec "
+        f"(changed: {', '.join(changed) or 'unknown'}); undo the change or rename the study"
+    )
+
+
+def load_existing(location: str, study_name: str | None = None) -> tuple[optuna.Study, Spec]:
+    """An existing study and the spec stored inside it (for resume, status, report, worker)."""
+    storage = open_storage(location, create=False)
+    names = [summary.study_name for summary in optuna.get_all_study_summaries(storage)]
+    if study_name is None:
+        if len(names) != 1:
+            found = ", ".join(names) or "none"
+            raise StudyNotFound(f"{redact(location)}: expected one study, found {found}")
+        study_name = names[0]
+    if study_name not in names:
+        raise StudyNotFound(f"{redact(location)}: no study named '{study_name}'")
+    study = optuna.load_study(study_name=study_name, storage=storage)
+    text = study.user_attrs.get("spec_text")
+    if not isinstance(text, str):
+        raise StudyNotFound(f"{redact(location)}: '{study_name}' was not made by sweeper")
+    spec = parse_spec(text, study.user_attrs.get("spec_source", "") or "<stored spec>")
+    # the budget and worker count of the latest launch, which may differ from the file's
+    stored = study.user_attrs
+    spec = spec.with_overrides(
+        trials=stored.get("budget"), workers=stored.get("workers"), storage=location
+    )
+    return study, spec
+
+
+@dataclass(frozen=True)
+class Tally:
+    """Trials of a study by state, as the budget sees them."""
+
+    complete: int
+    pruned: int
+    failed: int
+    running: int
+    waiting: int
+
+    @property
+    def finished(self) -> int:
+        return self.complete + self.pruned
+
+
+def tally(trials: list[FrozenTrial]) -> Tally:
+    counts = Counter(trial.state for trial in trials)
+    return Tally(
+        complete=counts[TrialState.COMPLETE],
+        pruned=counts[TrialState.PRUNED],
+        failed=counts[TrialState.FAIL],
+        running=counts[TrialState.RUNNING],
+        waiting=counts[TrialState.WAITING],
+    )
+
+
+def budget_of(spec: Spec) -> int:
+    if spec.study.sampler == "grid":
+        points = grid_points(spec.search) or []
+        return min(spec.study.trials, len(points))
+    return spec.study.trials
+
+
+def top_up(study: optuna.Study, spec: Spec) -> int:
+    """Queue as many trials as the budget still needs; only the launching process calls this.
+
+    Budget = finished (complete + pruned) + running + waiting; failed trials do not count, so a
+    failure is replaced. Returns the number queued.
+    """
+    trials = study.get_trials(deepcopy=False)
+    now = tally(trials)
+    need = budget_of(spec) - now.finished - now.running - now.waiting
+    if need <= 0:
+        return 0
+    if spec.study.sampler == "grid":
+        return _queue_grid_points(study, spec, trials, need)
+    for _ in range(need):
+        study.enqueue_trial({})
+    return need
+
+
+def _queue_grid_points(
+    study: optuna.Study, spec: Spec, trials: list[FrozenTrial], need: int
+) -> int:
+    def key(params: dict[str, Any]) -> str:
+        return json.dumps(params, sort_keys=True, default=str)
+
+    taken = {
+        key(trial.system_attrs.get("fixed_params") or trial.params)
+        for trial in trials
+        if trial.state != TrialState.FAIL
+    }
+    queued = 0
+    for point in grid_points(spec.search) or []:
+        if queued == need:
+            break
+        if key(point) not in taken:
+            study.enqueue_trial(point)
+            queued += 1
+    return queued
+
+
+def request_stop(study: optuna.Study, reason: str) -> None:
+    study.set_user_attr(STOP_ATTR, reason)
+
+
+def stop_requested(study: optuna.Study) -> str | None:
+    reason = study._storage.get_study_user_attrs(study._study_id).get(STOP_ATTR)
+    return reason if isinstance(reason, str) else None
