@@ -1,14 +1,14 @@
 """The exceptions sweeper raises on purpose.
 
-    SweeperError                 base; the command line maps each branch to an exit code once
-     +-- InputError              exit 2: the user's input cannot be used as given
-     |    +-- SpecError          a spec file (or a data file it names) is invalid: file:key: message
-     |    +-- StudyNotFound      no study at the given storage location
-     |    +-- SpecChanged        the spec differs from the one stored in the study
-     +-- RunFailure              exit 1: the work started but could not finish
-          +-- TooManyFailures    consecutive trial failures reached the spec's limit
-          +-- StorageFailure     the study database could not be opened or written
-     +-- Interrupted             exit 130: the user or the scheduler asked us to stop
+SweeperError                 base; the command line maps each branch to an exit code once
+ +-- InputError              exit 2: the user's input cannot be used as given
+ |    +-- SpecError          a spec file (or a data file it names) is invalid: file:key: message
+ |    +-- StudyNotFound      no study at the given storage location
+ |    +-- SpecChanged        the spec differs from the one stored in the study
+ +-- RunFailure              exit 1: the work started but could not finish
+      +-- TooManyFailures    consecutive trial failures reached the spec's limit
+      +-- StorageFailure     the study database could not be opened or written
+ +-- Interrupted             exit 130: the user or the scheduler asked us to stop
 """
 
 from __future__ import annotations

@@ -1,0 +1,67 @@
+"""Shared fixtures: small spec files and a command-line runner."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner, Result
+
+from sweeper.cli import main
+
+TINY = """
+[study]
+name = "{name}"
+trials = {trials}
+workers = {workers}
+seed = 3
+sampler = "{sampler}"
+
+[task]
+kind = "adding"
+length = 12
+train_sequences = 64
+valid_sequences = 32
+
+[training]
+epochs = {epochs}
+batch = 32
+
+[search]
+unroll = {{ between = [3, 12] }}
+hidden = {{ one_of = [4, 8] }}
+clip = {{ between = [0.5, 5.0], scale = "log" }}
+lr = {{ between = [0.001, 0.05], scale = "log" }}
+"""
+
+
+def write_tiny_spec(
+    folder: Path,
+    name: str = "tiny",
+    trials: int = 4,
+    workers: int = 1,
+    epochs: int = 2,
+    sampler: str = "tpe",
+    extra: str = "",
+) -> Path:
+    path = folder / f"{name}.toml"
+    text = TINY.format(name=name, trials=trials, workers=workers, epochs=epochs, sampler=sampler)
+    path.write_text(text + extra, encoding="utf-8")
+    return path
+
+
+@pytest.fixture
+def in_tmp(tmp_path: Path) -> Iterator[Path]:
+    """Run the test inside its own folder (the default storage is runs/ under it)."""
+    old = Path.cwd()
+    os.chdir(tmp_path)
+    try:
+        yield tmp_path
+    finally:
+        os.chdir(old)
+
+
+def invoke(*args: str) -> Result:
+    return CliRunner().invoke(main, list(args), catch_exceptions=False)
