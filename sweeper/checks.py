@@ -47,7 +47,9 @@ def _check_objective(spec: Spec) -> None:
         raise SpecError(spec.source, "task.function", 'missing; give "module:function"')
     if not spec.search:
         raise SpecError(spec.source, "search", "an objective plugin needs at least one parameter")
-    load_objective(ref, spec.base_dir, spec.source, "task.function")
+    load_objective(
+        ref, spec.base_dir, spec.source, "task.function", path=spec.task.get("path", ".")
+    )
 
 
 def _entry_values(entry: SearchEntry) -> list[Any]:

@@ -7,7 +7,7 @@ import math
 import sys
 import time
 from dataclasses import dataclass
-from typing import IO
+from typing import IO, Any
 
 import optuna
 from optuna.trial import FrozenTrial, TrialState
@@ -83,7 +83,7 @@ def snapshot(study: optuna.Study, budget: int, workers: int) -> Snapshot:
     best = None
     if complete:
         pick = min if study.direction == optuna.study.StudyDirection.MINIMIZE else max
-        best = pick(complete, key=lambda t: t.value)
+        best = pick(complete, key=lambda t: float(t.value or 0.0))
     now = dt.datetime.now()
     running = tuple(
         RunningTrial(
@@ -121,8 +121,8 @@ class ProgressDisplay:
         self.live = self.stream.isatty()
         self._last_line = ""
         self._last_time = 0.0
-        self._bar = None
-        self._task = None
+        self._bar: Any = None
+        self._task: Any = None
 
     def __enter__(self) -> ProgressDisplay:
         if self.live:

@@ -100,7 +100,9 @@ def create_or_continue(
 ) -> optuna.Study:
     """The study named in the spec; a different spec under the same name is refused."""
     names = {summary.study_name for summary in optuna.get_all_study_summaries(storage)}
-    direction = spec.study.goal
+    direction = optuna.study.StudyDirection.MINIMIZE
+    if spec.study.goal == "maximize":
+        direction = optuna.study.StudyDirection.MAXIMIZE
     study = optuna.create_study(
         storage=storage, study_name=spec.study.name, direction=direction, load_if_exists=True
     )

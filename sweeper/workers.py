@@ -106,7 +106,11 @@ def _context(
         context.should_stop = stop_event.is_set
     if spec.is_objective_plugin:
         context.objective = load_objective(
-            spec.task["function"], spec.base_dir, spec.source, "task.function"
+            spec.task["function"],
+            spec.base_dir,
+            spec.source,
+            "task.function",
+            path=spec.task.get("path", "."),
         )
     else:
         context.task = build_spec_task(spec)
