@@ -149,6 +149,14 @@ def _parse_range(source: str, key: str, raw: Mapping[str, Any]) -> Range:
             raise SpecError(source, f"{key}.step", "a log range cannot have a step; drop one")
         if integer and not isinstance(step, int):
             raise SpecError(source, f"{key}.step", "an integer range needs a whole-number step")
+        steps = (high - low) / step
+        if abs(steps - round(steps)) > 1e-9:
+            raise SpecError(
+                source,
+                f"{key}.step",
+                f"{low:g}..{high:g} is not a whole number of steps of {step:g}; "
+                "move high to low + k * step",
+            )
     return Range(float(low), float(high), log, float(step) if step else None, integer)
 
 
