@@ -8,18 +8,21 @@ import socket
 import traceback
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import optuna
 import sqlalchemy as sa
 
-from sweeper import telemetry
+from sweeper import checkpoints, telemetry
 from sweeper.params import TrialParams
 from sweeper.seeds import trial_seed
 from sweeper.space import draw
 from sweeper.spec import Spec
 from sweeper.tasks.base import Task
 from sweeper.telemetry import EpochRecord
+
+if TYPE_CHECKING:
+    from sweeper.train import TrialRun
 
 Objective = Callable[[dict[str, Any], Callable[[int, float], None]], float]
 TRACEBACK_LINES = 12
@@ -68,22 +71,40 @@ def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:
     trial.set_user_attr("worker", ctx.worker)
     if ctx.spec.is_objective_plugin:
         return _run_objective(trial, ctx, params)
-    return _run_training(trial, ctx, params, seed)
+    return _run_training(trial, ctx, params, seed, origin)
 
 
-def _run_training(trial: optuna.Trial, ctx: TrialContext, params: dict, seed: int) -> float:
+def _continue_from_checkpoint(
+    trial: optuna.Trial, ctx: TrialContext, run: TrialRun, origin: int
+) -> None:
+    """Load the origin trial's latest state and replay its recorded epochs into this trial."""
+    state = checkpoints.load(ctx.engine, ctx.study_name, origin)
+    if state is None:
+        return
+    run.load_state_dict(state)
+    for record in run.records:
+        telemetry.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
+        trial.report(objective_value(ctx.spec, record), record.epoch)
+    trial.set_user_attr("resumed_from_epoch", run.epoch)
+
+
+def _run_training(
+    trial: optuna.Trial, ctx: TrialContext, params: dict, seed: int, origin: int
+) -> float:
     from sweeper.train import TrialRun, divergence_reason
 
     assert ctx.task is not None, "a training trial needs its task"
     training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
     trial.set_user_attr("training", training.as_dict())
     run = TrialRun(ctx.task, training, seed)
-    compute = 0.0
-    value = math.nan
-    for epoch in range(1, ctx.spec.training.epochs + 1):
-        # train one epoch, then record it before anything can stop the trial
+    _continue_from_checkpoint(trial, ctx, run, origin)
+    compute = sum(record.seconds for record in run.records)
+    value = objective_value(ctx.spec, run.records[-1]) if run.records else math.nan
+    for epoch in range(run.epoch + 1, ctx.spec.training.epochs + 1):
+        # train one epoch, then record it and save the state before anything can stop the trial
         record = run.run_epoch(ctx.should_stop)
         telemetry.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
+        checkpoints.save(ctx.engine, ctx.study_name, origin, epoch, run.state_dict())
         compute += record.seconds
         trial.set_user_attr("epochs", epoch)
         trial.set_user_attr("compute_seconds", compute)

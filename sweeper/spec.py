@@ -21,7 +21,7 @@ OBJECTIVES = ("valid_loss", "valid_metric")
 SAMPLERS = ("tpe", "random", "sobol", "grid")
 RULES = ("none", "median", "asha", "hyperband")
 # Keys that may differ between launches of one study (everything else must match).
-MUTABLE_KEYS = ("study.trials", "study.workers", "study.storage")
+MUTABLE_KEYS = ("study.trials", "study.workers", "study.storage", "study.heartbeat")
 
 
 @dataclass(frozen=True)
@@ -36,6 +36,8 @@ class StudySection:
     storage: str = ""
     max_failures: int = 5
     max_retries: int = 2
+    heartbeat: int = 10  # seconds; a trial silent for 3 heartbeats is taken as dead
+    keep_best_checkpoint: bool = False
 
 
 @dataclass(frozen=True)
@@ -210,6 +212,7 @@ def _parse_study(source: str, table: Mapping[str, Any]) -> StudySection:
     _require_min(source, "study.workers", study.workers, 1)
     _require_min(source, "study.max_failures", study.max_failures, 1)
     _require_min(source, "study.max_retries", study.max_retries, 0)
+    _require_min(source, "study.heartbeat", study.heartbeat, 1)
     return study
 
 

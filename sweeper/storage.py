@@ -2,19 +2,23 @@
 
 from __future__ import annotations
 
+import random
 import re
+import time
 import warnings
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import optuna
 import sqlalchemy as sa
 
 from sweeper.errors import StorageFailure, StudyNotFound
 
+T = TypeVar("T")
+
 BUSY_TIMEOUT_SECONDS = 60
 HEARTBEAT_SECONDS = 10
-GRACE_SECONDS = 30
 
 _PASSWORD = re.compile(r"(?P<head>://[^:/@]+:)(?P<password>[^@]*)(?P<tail>@)")
 
@@ -43,6 +47,8 @@ def sqlite_path(url: str) -> Path | None:
 
 
 def _set_sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
+    # The driver's own transaction handling is off; _begin_immediate opens every transaction.
+    dbapi_connection.isolation_level = None
     cursor = dbapi_connection.cursor()
     cursor.execute("PRAGMA journal_mode=WAL")
     cursor.execute(f"PRAGMA busy_timeout={BUSY_TIMEOUT_SECONDS * 1000}")
@@ -80,19 +86,52 @@ def open_storage(
                 url,
                 engine_kwargs=engine_options(url),
                 heartbeat_interval=HEARTBEAT_SECONDS if heartbeat else None,
-                grace_period=GRACE_SECONDS if heartbeat else None,
+                grace_period=3 * HEARTBEAT_SECONDS if heartbeat else None,
                 heartbeat_stale_trial_callback=stale_callback,
             )
     except (sa.exc.SQLAlchemyError, ImportError, ValueError) as error:
         raise StorageFailure(f"cannot open storage {redact(url)}: {redact(str(error))}") from None
     if is_sqlite(url):
         sa.event.listen(storage.engine, "connect", _set_sqlite_pragmas)
+        sa.event.listen(storage.engine, "begin", _begin_immediate)
         storage.engine.dispose()  # reconnect so that every pooled connection gets the pragmas
     return storage
 
 
-def engine_of(study: optuna.Study) -> sa.Engine:
-    """The SQLAlchemy engine under a study (optuna wraps RDB storage in a cache layer)."""
+def _begin_immediate(connection: sa.Connection) -> None:
+    # A deferred transaction that reads and then writes fails at once with "database is
+    # locked" when another process wrote in between; taking the write lock up front makes
+    # SQLite wait on the busy timeout instead.
+    connection.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def retry_locked(action: Callable[[], T], *, attempts: int = 8) -> T:
+    """Run ``action``, retrying with backoff while SQLite reports a locked database."""
+    delay = 0.05
+    for attempt in range(attempts):
+        try:
+            return action()
+        except sa.exc.OperationalError as error:
+            text = str(error).lower()
+            if attempt == attempts - 1 or ("locked" not in text and "busy" not in text):
+                raise
+            time.sleep(delay + random.uniform(0, delay))
+            delay = min(delay * 2, 2.0)
+    raise AssertionError("unreachable")
+
+
+def backend_of(study: optuna.Study) -> Any:
+    """The RDB storage under a study (optuna wraps it in a cache layer)."""
     storage: Any = study._storage
-    storage = getattr(storage, "_backend", storage)
-    return storage.engine
+    return getattr(storage, "_backend", storage)
+
+
+def engine_of(study: optuna.Study) -> sa.Engine:
+    """The SQLAlchemy engine under a study, shared by our own tables."""
+    return backend_of(study).engine
+
+
+def set_heartbeat(storage: optuna.storages.RDBStorage, seconds: int) -> None:
+    """Heartbeat every ``seconds``; a trial silent for three heartbeats counts as dead."""
+    storage.heartbeat_interval = seconds
+    storage.grace_period = 3 * seconds

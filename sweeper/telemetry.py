@@ -11,6 +11,8 @@ from typing import Any
 import numpy as np
 import sqlalchemy as sa
 
+from sweeper.storage import retry_locked
+
 METADATA = sa.MetaData()
 
 EPOCHS = sa.Table(
@@ -115,11 +117,15 @@ def write_epoch(engine: sa.Engine, study_name: str, trial_number: int, record: E
         & (EPOCHS.c.trial_number == trial_number)
         & (EPOCHS.c.epoch == record.epoch)
     )
-    with engine.begin() as connection:
-        connection.execute(sa.delete(EPOCHS).where(key))
-        connection.execute(
-            sa.insert(EPOCHS).values(study_name=study_name, trial_number=trial_number, **row)
-        )
+
+    def write() -> None:
+        with engine.begin() as connection:
+            connection.execute(sa.delete(EPOCHS).where(key))
+            connection.execute(
+                sa.insert(EPOCHS).values(study_name=study_name, trial_number=trial_number, **row)
+            )
+
+    retry_locked(write)
 
 
 def read_epochs(engine: sa.Engine, study_name: str) -> list[dict[str, Any]]:
