@@ -12,7 +12,7 @@ from typing import Any
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 
-from sweeper import telemetry
+from sweeper import checkpoints, telemetry
 from sweeper.errors import SpecChanged, StudyNotFound
 from sweeper.seeds import sampler_seed
 from sweeper.space import grid_points
@@ -109,6 +109,7 @@ def create_or_continue(
     if spec.study.name in names:
         _refuse_changed_spec(study, spec)
     telemetry.ensure_tables(storage.engine)
+    checkpoints.ensure_table(storage.engine)
     for key, value in attrs.items():
         study.set_user_attr(key, value)
     study.set_user_attr(STOP_ATTR, None)

@@ -98,8 +98,27 @@ def summarize_norms(norms: Sequence[float], clip: float) -> GradientStats:
     )
 
 
+SCHEMA_VERSION = 1
+
+META = sa.Table(
+    "sweeper_meta",
+    METADATA,
+    sa.Column("key", sa.String(64), primary_key=True),
+    sa.Column("value", sa.String(256), nullable=False),
+)
+
+
 def ensure_tables(engine: sa.Engine) -> None:
-    METADATA.create_all(engine, tables=[EPOCHS])
+    """Create our tables beside optuna's and record the schema version they follow."""
+    METADATA.create_all(engine, tables=[EPOCHS, META])
+    with engine.begin() as connection:
+        found = connection.execute(
+            sa.select(META.c.value).where(META.c.key == "schema_version")
+        ).scalar()
+        if found is None:
+            connection.execute(
+                sa.insert(META).values(key="schema_version", value=str(SCHEMA_VERSION))
+            )
 
 
 def _stored(value: Any) -> Any:
