@@ -61,7 +61,8 @@ def describe_spec(spec: Spec) -> str:
 def status_table(snap: Snapshot) -> str:
     counts = snap.counts
     summary = Table(title=f"study {snap.study_name}", show_header=True)
-    for column in ("budget", "complete", "stopped", "failed", "running", "waiting", "best", "ETA"):
+    columns = ("budget", "complete", "stopped", "failed", "interrupted", "running", "waiting")
+    for column in (*columns, "best", "ETA"):
         summary.add_column(column, justify="right")
     best = "-" if snap.best_value is None else f"{snap.best_value:.5g} (trial {snap.best_trial})"
     eta = "-" if snap.eta_seconds is None else format_seconds(snap.eta_seconds)
@@ -70,6 +71,7 @@ def status_table(snap: Snapshot) -> str:
         str(counts.complete),
         str(counts.pruned),
         str(counts.failed),
+        str(counts.interrupted),
         str(counts.running),
         str(counts.waiting),
         best,

@@ -11,10 +11,10 @@ from optuna.storages import RetryHeartbeatStaleTrialCallback, fail_stale_trials
 from optuna.trial import TrialState
 
 from sweeper.checks import build_spec_task
-from sweeper.errors import RunFailure, TooManyFailures
+from sweeper.errors import Interrupted, RunFailure, TooManyFailures
 from sweeper.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.spec import Spec
-from sweeper.storage import open_storage, redact
+from sweeper.storage import open_storage, redact, set_heartbeat
 from sweeper.study import (
     budget_of,
     create_or_continue,
@@ -23,9 +23,10 @@ from sweeper.study import (
     spec_attrs,
     top_up,
 )
-from sweeper.workers import default_threads, run_parallel, work
+from sweeper.workers import default_threads, install_stop_signals, run_parallel, work
 
 WATCH_SECONDS = 0.5
+STOP_WAIT_SECONDS = 8.0
 
 
 @dataclass
@@ -57,6 +58,7 @@ def open_for_launch(spec: Spec) -> optuna.Study:
     quiet_optuna()
     baseline, task, description = _task_attrs(spec)
     storage = open_storage(spec.storage_location)
+    set_heartbeat(storage, spec.study.heartbeat)
     storage.heartbeat_stale_trial_callback = RetryHeartbeatStaleTrialCallback(
         max_retry=spec.study.max_retries
     )
@@ -108,48 +110,84 @@ class Coordinator:
 
 
 def run_sweep(spec: Spec, display: ProgressDisplay | None = None) -> SweepResult:
-    """Run the spec's study to its budget with ``spec.study.workers`` workers."""
+    """Run the spec's study to its budget with ``spec.study.workers`` workers.
+
+    The first SIGINT or SIGTERM asks every worker to stop at its next window boundary and
+    raises Interrupted once they have; a second one raises KeyboardInterrupt at once.
+    """
     display = display or ProgressDisplay()
     study = open_for_launch(spec)
     coordinator = Coordinator(study, spec, display)
     threads = spec.training.threads or default_threads(spec.study.workers)
-    with display:
-        before = coordinator.step().counts
-        _watch(coordinator, spec, threads)
-        final = snapshot(study, budget_of(spec), spec.study.workers)
-        display.final(final)
+    stop = threading.Event()
+    restore = install_stop_signals(stop)
+    try:
+        with display:
+            before = coordinator.step().counts
+            _watch(coordinator, spec, threads, stop)
+            final = snapshot(study, budget_of(spec), spec.study.workers)
+            display.final(final)
+    finally:
+        if restore is not None:
+            restore()
     ran = final.counts.finished + final.counts.failed - before.finished - before.failed
     return SweepResult(study.study_name, spec.storage_location, final, coordinator.queued, ran)
 
 
-def _watch(coordinator: Coordinator, spec: Spec, threads: int) -> None:
+def _start_workers(
+    spec: Spec,
+    threads: int,
+    stop: threading.Event,
+    finished: threading.Event,
+    errors: list[BaseException],
+) -> threading.Thread:
+    location, name = spec.storage_location, spec.study.name
+    if spec.study.workers > 1:
+        return run_parallel(location, name, spec.study.workers, threads, finished.set, errors)
+
+    # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.
+    def single() -> None:
+        try:
+            work(location, name, 0, threads, stop)
+        except BaseException as error:  # surfaced in the launcher
+            errors.append(error)
+        finally:
+            finished.set()
+
+    thread = threading.Thread(target=single, name="sweeper-worker", daemon=True)
+    thread.start()
+    return thread
+
+
+def _watch(coordinator: Coordinator, spec: Spec, threads: int, stop: threading.Event) -> None:
     finished = threading.Event()
     errors: list[BaseException] = []
-    location, name = spec.storage_location, spec.study.name
-    if spec.study.workers == 1:
-        # One worker runs in this process (clean tracebacks); only the watching is threaded.
-        def single() -> None:
-            try:
-                work(location, name, 0, threads)
-            except BaseException as error:  # surfaced in the launcher below
-                errors.append(error)
-            finally:
-                finished.set()
-
-        thread = threading.Thread(target=single, name="sweeper-worker", daemon=True)
-        thread.start()
-    else:
-        thread = run_parallel(location, name, spec.study.workers, threads, finished.set, errors)
+    thread = _start_workers(spec, threads, stop, finished, errors)
     try:
         while not finished.wait(WATCH_SECONDS):
+            if stop.is_set():
+                _stop_workers(coordinator, finished)
             coordinator.step()
     except TooManyFailures:
         finished.wait(60)
         raise
     thread.join(timeout=5)
+    if stop.is_set():
+        _stop_workers(coordinator, finished)
     if errors:
         error = errors[0]
         if isinstance(error, RunFailure):
             raise error
         raise RunFailure(f"a worker stopped: {type(error).__name__}: {redact(str(error))}")
     coordinator.step()
+
+
+def _stop_workers(coordinator: Coordinator, finished: threading.Event) -> None:
+    """Ask every worker to stop, wait for them briefly, then leave with exit code 130."""
+    request_stop(coordinator.study, "interrupted")
+    finished.wait(STOP_WAIT_SECONDS)
+    location = coordinator.spec.storage_location
+    raise Interrupted(
+        f"interrupted; the study keeps its trials and checkpoints. "
+        f"Continue with: sweeper resume {redact(location)}"
+    )

@@ -38,10 +38,11 @@ class Snapshot:
         c = self.counts
         best = "-" if self.best_value is None else f"{self.best_value:.5g} (#{self.best_trial})"
         eta = "-" if self.eta_seconds is None else format_seconds(self.eta_seconds)
+        interrupted = f", {c.interrupted} interrupted" if c.interrupted else ""
         return (
             f"{self.study_name}: {c.finished}/{self.budget} finished "
             f"({c.complete} complete, {c.pruned} stopped), {c.running} running, "
-            f"{c.failed} failed; best {best}; ETA {eta}"
+            f"{c.failed} failed{interrupted}; best {best}; ETA {eta}"
         )
 
 

@@ -162,6 +162,7 @@ class Tally:
     failed: int
     running: int
     waiting: int
+    interrupted: int = 0  # stopped by a signal; continued by the next launch
 
     @property
     def finished(self) -> int:
@@ -170,13 +171,31 @@ class Tally:
 
 def tally(trials: list[FrozenTrial]) -> Tally:
     counts = Counter(trial.state for trial in trials)
+    interrupted = sum(
+        1 for t in trials if t.state == TrialState.FAIL and t.user_attrs.get("interrupted")
+    )
     return Tally(
         complete=counts[TrialState.COMPLETE],
         pruned=counts[TrialState.PRUNED],
-        failed=counts[TrialState.FAIL],
+        failed=counts[TrialState.FAIL] - interrupted,
         running=counts[TrialState.RUNNING],
         waiting=counts[TrialState.WAITING],
+        interrupted=interrupted,
     )
+
+
+def over_budget(trials: list[FrozenTrial], trial_number: int, budget: int) -> bool:
+    """Whether a just-claimed trial would exceed the budget.
+
+    Counts the finished trials and the running ones claimed before it (lower numbers), so
+    that every worker agrees on which claim is the surplus one.
+    """
+    ahead = sum(
+        1
+        for t in trials
+        if t.state in FINISHED or (t.state == TrialState.RUNNING and t.number < trial_number)
+    )
+    return ahead >= budget
 
 
 def budget_of(spec: Spec) -> int:
@@ -192,6 +211,7 @@ def top_up(study: optuna.Study, spec: Spec) -> int:
     Budget = finished (complete + pruned) + running + waiting; failed trials do not count, so a
     failure is replaced. Returns the number queued.
     """
+    requeue_interrupted(study)
     trials = study.get_trials(deepcopy=False)
     now = tally(trials)
     need = budget_of(spec) - now.finished - now.running - now.waiting
@@ -232,3 +252,35 @@ def request_stop(study: optuna.Study, reason: str) -> None:
 def stop_requested(study: optuna.Study) -> str | None:
     reason = study._storage.get_study_user_attrs(study._study_id).get(STOP_ATTR)
     return reason if isinstance(reason, str) else None
+
+
+def requeue_interrupted(study: optuna.Study) -> int:
+    """Queue again, with the same parameters, every trial a stop interrupted.
+
+    The new trial records which trial it continues in the same system attributes optuna's
+    heartbeat retry uses, so it loads that trial's checkpoint. Each continuation lengthens
+    the retry history that ``study.max_retries`` is checked against.
+    """
+    trials = study.get_trials(deepcopy=False)
+    continued = {number for t in trials for number in t.system_attrs.get("retry_history", [])}
+    queued = 0
+    for trial in trials:
+        if trial.state != TrialState.FAIL or not trial.user_attrs.get("interrupted"):
+            continue
+        if trial.number in continued:
+            continue
+        history = [*trial.system_attrs.get("retry_history", []), trial.number]
+        study.add_trial(
+            optuna.create_trial(
+                state=TrialState.WAITING,
+                params=trial.params,
+                distributions=trial.distributions,
+                system_attrs={
+                    "failed_trial": trial.system_attrs.get("failed_trial", trial.number),
+                    "retry_history": history,
+                    "continues_interrupted": trial.number,
+                },
+            )
+        )
+        queued += 1
+    return queued

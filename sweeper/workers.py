@@ -4,30 +4,44 @@ from __future__ import annotations
 
 import math
 import os
+import signal
 import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import optuna
 from optuna.storages._heartbeat import get_heartbeat_thread
 from optuna.trial import TrialState
 
+from sweeper import checkpoints
 from sweeper.checks import build_spec_task
-from sweeper.runner import TrialContext, failure_attrs, run_trial, worker_name
-from sweeper.storage import engine_of, redact
+from sweeper.runner import (
+    TrialContext,
+    failure_attrs,
+    origin_number,
+    run_trial,
+    worker_name,
+)
+from sweeper.spec import Spec
+from sweeper.storage import backend_of, engine_of, redact, retry_locked, set_heartbeat
 from sweeper.study import (
     budget_of,
     load_existing,
     make_pruner,
     make_sampler,
+    over_budget,
     quiet_optuna,
     stop_requested,
     tally,
 )
+from sweeper.train import TrainingInterrupted
 
 IDLE_POLL_SECONDS = 0.25
 IDLE_GIVE_UP_SECONDS = 120.0
+STOP_POLL_SECONDS = 1.0
+MAX_POOL_RESTARTS = 5
 
 
 def default_threads(workers: int) -> int:
@@ -47,35 +61,79 @@ def work(
     worker_index: int,
     threads: int,
     stop_event: threading.Event | None = None,
+    own_signals: bool = False,
 ) -> WorkerSummary:
     """Claim and run queued trials until the budget is met or a stop is requested.
 
     Runs in a fresh process (or in the launcher for one worker); it opens its own storage after
-    it starts, so no database connection ever crosses a fork.
+    it starts, so no database connection ever crosses a fork. ``own_signals``: this process
+    is a worker of its own, so its first Ctrl-C or SIGTERM stops at the next window boundary.
     """
     import torch
 
     # before any tensor work: thread pools are sized on first use
     previous = torch.get_num_threads()
     torch.set_num_threads(threads)
+    stop_event = stop_event or threading.Event()
+    restore = install_stop_signals(stop_event) if own_signals else None
     try:
         return _work(location, study_name, worker_index, stop_event)
     finally:
         torch.set_num_threads(previous)
+        if restore is not None:
+            restore()
+
+
+def install_stop_signals(stop_event: threading.Event) -> Callable[[], None] | None:
+    """First SIGINT/SIGTERM sets ``stop_event``; the second one stops at once."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+
+    def handler(signum: int, _frame: object) -> None:
+        if stop_event.is_set():
+            raise KeyboardInterrupt
+        stop_event.set()
+
+    previous = {sig: signal.signal(sig, handler) for sig in (signal.SIGINT, signal.SIGTERM)}
+
+    def restore() -> None:
+        for sig, old in previous.items():
+            signal.signal(sig, old)
+
+    return restore
+
+
+def _watch_stop_requests(
+    study: optuna.Study, stop_event: threading.Event, done: threading.Event
+) -> None:
+    """Turn a stop request stored in the study (by the launcher) into ``stop_event``."""
+
+    def poll() -> None:
+        while not done.wait(STOP_POLL_SECONDS):
+            try:
+                if stop_requested(study) is not None:
+                    stop_event.set()
+            except Exception:  # a storage hiccup must not kill the watcher
+                continue
+
+    threading.Thread(target=poll, name="sweeper-stop-watch", daemon=True).start()
 
 
 def _work(
-    location: str, study_name: str, worker_index: int, stop_event: threading.Event | None
+    location: str, study_name: str, worker_index: int, stop_event: threading.Event
 ) -> WorkerSummary:
     quiet_optuna()
     study, spec = load_existing(location, study_name)
+    set_heartbeat(backend_of(study), spec.study.heartbeat)
     study.sampler = make_sampler(spec, worker_index, len(study.get_trials(deepcopy=False)))
     study.pruner = make_pruner(spec)
     context = _context(study, spec, worker_index, stop_event)
+    done_event = threading.Event()
+    _watch_stop_requests(study, stop_event, done_event)
     done = 0
     idle_since = time.monotonic()
-    while stop_requested(study) is None and not (stop_event and stop_event.is_set()):
-        trial_id = study._pop_waiting_trial_id()
+    while not stop_event.is_set() and stop_requested(study) is None:
+        trial_id = retry_locked(study._pop_waiting_trial_id)
         if trial_id is None:
             now = tally(study.get_trials(deepcopy=False))
             waited = time.monotonic() - idle_since
@@ -85,14 +143,31 @@ def _work(
                 break
             time.sleep(IDLE_POLL_SECONDS)
             continue
+        if _give_back_if_surplus(study, spec, trial_id):
+            time.sleep(IDLE_POLL_SECONDS)
+            continue
         run_claimed(study, trial_id, context)
         done += 1
         idle_since = time.monotonic()
+    done_event.set()  # ends the watcher thread
     return WorkerSummary(context.worker, done)
 
 
+def _give_back_if_surplus(study: optuna.Study, spec: Spec, trial_id: int) -> bool:
+    """Return a claimed trial to the queue when the budget is already spoken for.
+
+    Happens when a launch lowers the budget below what earlier launches queued.
+    """
+    trials = study.get_trials(deepcopy=False)
+    number = next(t.number for t in trials if t._trial_id == trial_id)
+    if not over_budget(trials, number, budget_of(spec)):
+        return False
+    retry_locked(lambda: study._storage.set_trial_state_values(trial_id, TrialState.WAITING))
+    return True
+
+
 def _context(
-    study: optuna.Study, spec, worker_index: int, stop_event: threading.Event | None
+    study: optuna.Study, spec: Spec, worker_index: int, stop_event: threading.Event
 ) -> TrialContext:
     from sweeper.tasks.objective import load_objective
 
@@ -102,8 +177,7 @@ def _context(
         study_name=study.study_name,
         worker=worker_name(worker_index),
     )
-    if stop_event is not None:
-        context.should_stop = stop_event.is_set
+    context.should_stop = stop_event.is_set
     if spec.is_objective_plugin:
         context.objective = load_objective(
             spec.task["function"],
@@ -122,6 +196,7 @@ def run_claimed(study: optuna.Study, trial_id: int, context: TrialContext) -> Tr
     trial = optuna.Trial(study, trial_id)
     started = time.perf_counter()
     value: float | None = None
+    interrupted = False
     with get_heartbeat_thread(trial_id, study._storage):
         try:
             value = run_trial(trial, context)
@@ -130,21 +205,58 @@ def run_claimed(study: optuna.Study, trial_id: int, context: TrialContext) -> Tr
             state = TrialState.PRUNED
             if "end_reason" not in trial.user_attrs:
                 trial.set_user_attr("end_reason", str(stopped) or "stopped early")
+        except TrainingInterrupted as stop:
+            # kept as failed with its checkpoint; the next launch queues it again
+            state, interrupted = TrialState.FAIL, True
+            trial.set_user_attr("interrupted", True)
+            trial.set_user_attr(
+                "end_reason", f"interrupted in epoch {stop.epoch}; continues on resume"
+            )
         except Exception as error:  # user code failed: record it, keep the study going
             state = TrialState.FAIL
-            details = failure_attrs(error)
-            details = {key: redact(text) for key, text in details.items()}
+            details = {key: redact(text) for key, text in failure_attrs(error).items()}
             trial.set_user_attr("failure", details)
             trial.set_user_attr("end_reason", f"failed: {details['type']}: {details['message']}")
+    _finish_attrs(trial, started)
+    if state == TrialState.COMPLETE and (value is None or not math.isfinite(value)):
+        trial.set_user_attr("end_reason", f"objective returned {value!r}")
+        state, value = TrialState.FAIL, None
+    retry_locked(lambda: study.tell(trial, value, state=state))
+    if not interrupted:
+        _drop_checkpoint(study, trial, context)
+    return state
+
+
+def _finish_attrs(trial: optuna.Trial, started: float) -> None:
     wall = time.perf_counter() - started
     trial.set_user_attr("wall_seconds", wall)
     if "compute_seconds" not in trial.user_attrs:
         trial.set_user_attr("compute_seconds", wall)
-    if state == TrialState.COMPLETE and (value is None or not math.isfinite(value)):
-        trial.set_user_attr("end_reason", f"objective returned {value!r}")
-        state, value = TrialState.FAIL, None
-    study.tell(trial, value, state=state)
-    return state
+
+
+def origin_of(trial: optuna.trial.FrozenTrial) -> int:
+    original = trial.system_attrs.get("failed_trial")
+    return int(original) if original is not None else trial.number
+
+
+def _drop_checkpoint(study: optuna.Study, trial: optuna.Trial, context: TrialContext) -> None:
+    """A finished trial needs no checkpoint, except the best one when the spec keeps it."""
+    if context.spec.is_objective_plugin:
+        return
+    origin = origin_number(trial)
+    if not context.spec.study.keep_best_checkpoint:
+        checkpoints.drop(context.engine, context.study_name, [origin])
+        return
+    try:
+        best = study.best_trial
+    except ValueError:  # no complete trial yet
+        best = None
+    keep = origin_of(best) if best is not None else None
+    finished = {
+        origin_of(t)
+        for t in study.get_trials(deepcopy=False, states=(TrialState.COMPLETE, TrialState.PRUNED))
+    } | {origin}
+    checkpoints.drop(context.engine, context.study_name, sorted(finished - {keep}))
 
 
 def run_parallel(
@@ -160,10 +272,7 @@ def run_parallel(
 
     def target() -> None:
         try:
-            joblib.Parallel(n_jobs=workers, backend="loky")(
-                joblib.delayed(work)(location, study_name, index, threads)
-                for index in range(workers)
-            )
+            _parallel_until_done(joblib, location, study_name, workers, threads)
         except BaseException as error:  # surfaced by the launcher
             errors.append(error)
         finally:
@@ -172,3 +281,30 @@ def run_parallel(
     thread = threading.Thread(target=target, name="sweeper-workers", daemon=True)
     thread.start()
     return thread
+
+
+def _parallel_until_done(
+    joblib: Any, location: str, study_name: str, workers: int, threads: int
+) -> None:
+    """Run the workers; when one dies (killed, out of memory), start the pool again.
+
+    joblib's process pool stops every worker when one of them dies; their trials then look
+    stale and come back, from their checkpoints, through the heartbeat retry.
+    """
+    from joblib.externals.loky.process_executor import TerminatedWorkerError
+
+    for restart in range(MAX_POOL_RESTARTS + 1):
+        try:
+            joblib.Parallel(n_jobs=workers, backend="loky")(
+                joblib.delayed(work)(location, study_name, index, threads, None, True)
+                for index in range(workers)
+            )
+            return
+        except TerminatedWorkerError:
+            if restart == MAX_POOL_RESTARTS:
+                raise
+            study, spec = load_existing(location, study_name)
+            if stop_requested(study) is not None:
+                return
+            if tally(study.get_trials(deepcopy=False)).finished >= budget_of(spec):
+                return
