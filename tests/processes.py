@@ -1,0 +1,99 @@
+"""Helpers for tests that run sweeper in real processes and watch its study database."""
+
+from __future__ import annotations
+
+import sqlite3
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import optuna
+
+
+def start(folder: Path, *args: str) -> subprocess.Popen[str]:
+    """``python -m sweeper ARGS`` in ``folder``; output goes to files beside the study."""
+    # the child keeps its own copies of the file descriptors
+    with open(folder / "stdout.txt", "a") as out, open(folder / "stderr.txt", "a") as err:
+        return subprocess.Popen(
+            [sys.executable, "-m", "sweeper", *args],
+            cwd=folder,
+            stdout=out,
+            stderr=err,
+            text=True,
+        )
+
+
+def run(folder: Path, *args: str, timeout: float = 240) -> subprocess.CompletedProcess[str]:
+    return subprocess.run(
+        [sys.executable, "-m", "sweeper", *args],
+        cwd=folder,
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+    )
+
+
+def wait_for(condition: Callable[[], bool], timeout: float, what: str) -> None:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        try:
+            if condition():
+                return
+        except sqlite3.OperationalError:  # the database is not created yet
+            pass
+        time.sleep(0.05)
+    raise AssertionError(f"timed out after {timeout} s waiting for {what}")
+
+
+def query(db: Path, sql: str) -> list[tuple]:
+    if not db.exists():
+        raise sqlite3.OperationalError("no database yet")
+    with sqlite3.connect(db, timeout=30) as connection:
+        return connection.execute(sql).fetchall()
+
+
+def checkpoint_epochs(db: Path) -> dict[int, int]:
+    return dict(query(db, "SELECT trial_number, epoch FROM sweeper_checkpoints"))
+
+
+def epoch_count(db: Path) -> int:
+    return int(query(db, "SELECT COUNT(*) FROM sweeper_epochs")[0][0])
+
+
+def curves(db: Path) -> dict[int, list[tuple]]:
+    """Per trial, its epochs' recorded numbers except wall-clock ones."""
+    rows = query(
+        db,
+        "SELECT trial_number, epoch, train_loss, valid_loss, valid_metric, grad_norm_mean, "
+        "grad_norm_median, grad_norm_p95, grad_norm_max, clip_fraction, nonfinite_steps, steps "
+        "FROM sweeper_epochs ORDER BY trial_number, epoch",
+    )
+    out: dict[int, list[tuple]] = {}
+    for row in rows:
+        out.setdefault(row[0], []).append(row[1:])
+    return out
+
+
+def trials(db: Path, name: str) -> list[optuna.trial.FrozenTrial]:
+    from sweeper.storage import open_storage
+
+    study = optuna.load_study(study_name=name, storage=open_storage(str(db), create=False))
+    return study.get_trials()
+
+
+def children(pid: int) -> list[int]:
+    """Direct child processes of ``pid`` (Linux)."""
+    found = []
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        text = (task / "children").read_text().split()
+        found += [int(child) for child in text]
+    return found
+
+
+def cmdline(pid: int) -> str:
+    try:
+        return Path(f"/proc/{pid}/cmdline").read_bytes().replace(b"\0", b" ").decode()
+    except FileNotFoundError:
+        return ""

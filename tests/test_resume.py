@@ -1,0 +1,146 @@
+"""Interrupted studies resume without losing or repeating work (real processes and signals)."""
+
+from __future__ import annotations
+
+import os
+import signal
+import time
+from pathlib import Path
+
+import pytest
+from optuna.trial import TrialState
+
+from tests import processes as proc
+
+SPEC = """
+[study]
+name = "{name}"
+trials = {trials}
+workers = {workers}
+seed = 13
+heartbeat = 1
+
+[task]
+kind = "adding"
+length = 40
+train_sequences = {sequences}
+valid_sequences = 64
+
+[training]
+epochs = {epochs}
+hidden = 16
+threads = 1
+
+[search]
+unroll = {{ one_of = [10, 20, 40] }}
+lr = {{ between = [0.002, 0.02], scale = "log" }}
+"""
+
+
+def _spec(
+    folder: Path,
+    name: str = "r",
+    trials: int = 3,
+    workers: int = 1,
+    epochs: int = 3,
+    sequences: int = 2048,
+) -> Path:
+    path = folder / f"{name}.toml"
+    path.write_text(
+        SPEC.format(name=name, trials=trials, workers=workers, epochs=epochs, sequences=sequences)
+    )
+    return path
+
+
+def _finished_once(trials: list) -> None:
+    """No configuration's work is counted twice: one finished trial per origin."""
+    finished = [t for t in trials if t.state in (TrialState.COMPLETE, TrialState.PRUNED)]
+    origins = [t.user_attrs.get("retry_of", t.number) for t in finished]
+    assert len(origins) == len(set(origins)), origins
+
+
+@pytest.mark.parametrize(("sig", "workers"), [(signal.SIGINT, 1), (signal.SIGTERM, 2)])
+def test_signal_exits_130_quickly_then_resume_completes(
+    tmp_path: Path, sig: int, workers: int
+) -> None:
+    spec = _spec(tmp_path, trials=3, workers=workers)
+    db = tmp_path / "runs" / "r.db"
+    launcher = proc.start(tmp_path, "run", spec.name)
+    proc.wait_for(lambda: proc.epoch_count(db) >= 1, 120, "a first epoch")
+    sent = time.monotonic()
+    launcher.send_signal(sig)
+    assert launcher.wait(timeout=30) == 130
+    assert time.monotonic() - sent < 10
+    assert f"sweeper resume runs{os.sep}r.db" in (tmp_path / "stderr.txt").read_text()
+
+    resumed = proc.run(tmp_path, "resume", "runs/r.db")
+    assert resumed.returncode == 0, resumed.stderr
+    trials = proc.trials(db, "r")
+    assert sum(t.state == TrialState.COMPLETE for t in trials) == 3
+    _finished_once(trials)
+    interrupted = [t for t in trials if t.user_attrs.get("interrupted")]
+    assert interrupted, "the signal should have caught a trial mid-epoch"
+    continued = [
+        t for t in trials if t.user_attrs.get("retry_of") in {i.number for i in interrupted}
+    ]
+    assert continued and all(t.user_attrs.get("resumed_from_epoch", 0) >= 1 for t in continued)
+    assert proc.checkpoint_epochs(db) == {}, "finished trials keep no checkpoint"
+
+
+def test_killed_trial_continues_bit_for_bit(tmp_path: Path) -> None:
+    twin_dir, killed_dir = tmp_path / "twin", tmp_path / "killed"
+    twin_dir.mkdir()
+    killed_dir.mkdir()
+    twin = proc.run(twin_dir, "run", _spec(twin_dir, trials=1, epochs=4).name)
+    assert twin.returncode == 0, twin.stderr
+
+    db = killed_dir / "runs" / "r.db"
+    launcher = proc.start(killed_dir, "run", _spec(killed_dir, trials=1, epochs=4).name)
+    proc.wait_for(lambda: proc.checkpoint_epochs(db).get(0, 0) >= 2, 120, "epoch 2's checkpoint")
+    launcher.kill()
+    launcher.wait()
+    resumed = proc.run(killed_dir, "resume", "runs/r.db")
+    assert resumed.returncode == 0, resumed.stderr
+
+    trials = proc.trials(db, "r")
+    (retry,) = [t for t in trials if t.state == TrialState.COMPLETE]
+    assert retry.user_attrs["retry_of"] == 0 and retry.user_attrs["resumed_from_epoch"] >= 2
+    expected = proc.curves(twin_dir / "runs" / "r.db")[0]
+    assert proc.curves(db)[retry.number] == expected  # every recorded number, exactly
+    assert retry.value == proc.trials(twin_dir / "runs" / "r.db", "r")[0].value
+
+
+def _loky_workers(launcher_pid: int) -> list[int]:
+    return [
+        pid
+        for pid in proc.children(launcher_pid)
+        if "loky" in proc.cmdline(pid) and "resource_tracker" not in proc.cmdline(pid)
+    ]
+
+
+@pytest.mark.parametrize("moment", ["during an epoch", "right after a checkpoint"])
+def test_sigkill_one_worker_then_resume(tmp_path: Path, moment: str) -> None:
+    spec = _spec(tmp_path, trials=4, workers=2, epochs=3)
+    db = tmp_path / "runs" / "r.db"
+    launcher = proc.start(tmp_path, "run", spec.name)
+    proc.wait_for(lambda: len(_loky_workers(launcher.pid)) == 2, 120, "two workers")
+    if moment == "during an epoch":
+        proc.wait_for(lambda: proc.epoch_count(db) >= 1, 120, "a first epoch")
+        time.sleep(0.3)
+    else:
+        proc.wait_for(lambda: len(proc.checkpoint_epochs(db)) >= 1, 120, "a checkpoint")
+    os.kill(_loky_workers(launcher.pid)[0], signal.SIGKILL)
+    launcher.wait(timeout=240)
+
+    resumed = proc.run(tmp_path, "resume", "runs/r.db")
+    assert resumed.returncode == 0, resumed.stderr
+    trials = proc.trials(db, "r")
+    assert sum(t.state == TrialState.COMPLETE for t in trials) == 4
+    _finished_once(trials)
+    assert proc.query(db, "PRAGMA integrity_check") == [("ok",)]
+    retried = [t for t in trials if "retry_of" in t.user_attrs and t.state == TrialState.COMPLETE]
+    assert retried, "the killed worker's trial must be retried"
+    assert any(t.user_attrs.get("resumed_from_epoch", 0) >= 1 for t in retried)
+    for trial in retried:  # its epoch count proves where it continued
+        assert trial.user_attrs["epochs"] == 3
+        assert proc.curves(db)[trial.number][-1][0] == 3
