@@ -92,6 +92,8 @@ def _finish(result: object, report_path: str | None) -> None:
             "raise --trials to run more"
         )
     click.echo(result.snapshot.line())
+    if result.best_line:
+        click.echo(result.best_line)
     output = Path(report_path) if report_path else default_report_path(result.location)
     try:
         from sweeper.report import build_report

@@ -36,6 +36,7 @@ class SweepResult:
     snapshot: Snapshot
     queued: int = 0
     ran: int = 0
+    best_line: str = ""
     report: str | None = None
     notes: list[str] = field(default_factory=list)
 
@@ -131,7 +132,28 @@ def run_sweep(spec: Spec, display: ProgressDisplay | None = None) -> SweepResult
         if restore is not None:
             restore()
     ran = final.counts.finished + final.counts.failed - before.finished - before.failed
-    return SweepResult(study.study_name, spec.storage_location, final, coordinator.queued, ran)
+    return SweepResult(
+        study.study_name, spec.storage_location, final, coordinator.queued, ran, best_line(study)
+    )
+
+
+def best_line(study: optuna.Study) -> str:
+    """The best trial in one line: its value, the task's baseline and its parameters."""
+    try:
+        best = study.best_trial
+    except ValueError:
+        return ""
+    objective = study.user_attrs.get("objective", "value")
+    baseline = study.user_attrs.get("baseline") or {}
+    against = ""
+    if baseline.get("measure") == objective:
+        against = f" (baseline {baseline['value']:.5g})"
+    params = ", ".join(f"{name}={_short(value)}" for name, value in best.params.items())
+    return f"best trial {best.number}: {objective} {best.value:.5g}{against}; {params}"
+
+
+def _short(value: object) -> str:
+    return f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
 def _start_workers(

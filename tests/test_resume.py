@@ -144,3 +144,4 @@ def test_sigkill_one_worker_then_resume(tmp_path: Path, moment: str) -> None:
     for trial in retried:  # its epoch count proves where it continued
         assert trial.user_attrs["epochs"] == 3
         assert proc.curves(db)[trial.number][-1][0] == 3
+    assert proc.checkpoint_epochs(db) == {}, "finished trials keep no checkpoint"
