@@ -1,0 +1,156 @@
+"""Assemble the static summary: sections, figures as inline JSON, plotly.js once, our script."""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import os
+import tempfile
+from datetime import datetime
+from importlib import metadata, resources
+from pathlib import Path
+from string import Template
+
+import plotly.offline
+
+from sweeper.report.collect import StudyTables, read_study
+from sweeper.report.escape import esc, script_json
+from sweeper.report.html_parts import FigureBook, missing, section
+from sweeper.report.importance import REPLICATES, param_importance
+from sweeper.report.sections_analysis import (
+    cost_section,
+    curves_section,
+    importance_section,
+    response_section,
+    timeline_section,
+)
+from sweeper.report.sections_health import failures_section, health_section, retries_section
+from sweeper.report.sections_outcome import outcome_section, ranked_section
+
+CONTENTS = (
+    ("outcome", "Outcome"),
+    ("ranked", "Ranked trials"),
+    ("importance", "What mattered"),
+    ("response", "Response"),
+    ("curves", "Learning curves"),
+    ("gradients", "Gradient health"),
+    ("cost", "Cost and quality"),
+    ("timeline", "Timeline"),
+    ("failures", "Failures"),
+    ("retries", "Retries"),
+    ("spec", "Spec"),
+)
+
+
+def _version() -> str:
+    try:
+        return metadata.version("sweeper")
+    except metadata.PackageNotFoundError:  # running from a source tree that is not installed
+        return "unknown"
+
+
+VERSION = _version()
+
+
+def build_report(location: str, output: Path, study_name: str | None = None) -> Path:
+    """Write the static HTML summary of a study and return the path written.
+
+    ``location`` is a ``.db`` path or a storage URL. With ``study_name`` None the storage must
+    hold exactly one study; otherwise ``StudyNotFound`` or ``InputError`` says what is there.
+    """
+    tables = read_study(location, study_name)
+    return write_page(render_page(tables), Path(output))
+
+
+def write_page(page: str, output: Path) -> Path:
+    """Write atomically, so that a reader never sees half a page."""
+    output.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(dir=output.parent, prefix=".summary-", suffix=".html")
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8") as stream:
+            stream.write(page)
+        os.replace(temporary, output)
+    except BaseException:
+        Path(temporary).unlink(missing_ok=True)
+        raise
+    return output
+
+
+def render_page(tables: StudyTables, *, replicates: int = REPLICATES, seed: int = 0) -> str:
+    """The whole page as one string."""
+    book = FigureBook()
+    result = param_importance(tables, replicates=replicates, seed=seed)
+    sections = [
+        outcome_section(tables),
+        ranked_section(tables),
+        importance_section(tables, result, book),
+        response_section(tables, result, book),
+        curves_section(tables, book),
+        health_section(tables, book),
+        cost_section(tables, book),
+        timeline_section(tables, book),
+        failures_section(tables),
+        retries_section(tables),
+        spec_section(tables),
+    ]
+    page_js = _resource("summary.js")
+    plotly_js = plotly.offline.get_plotlyjs()
+    return Template(_resource("summary.html")).substitute(
+        policy=_policy(page_js, plotly_js),
+        version=VERSION,
+        title=esc(f"{tables.summary.name} · sweeper summary"),
+        css=_resource("summary.css"),
+        heading=esc(tables.summary.name),
+        subheading=esc(_subheading(tables)),
+        nav="".join(f'<a href="#{a}">{esc(t)}</a>' for a, t in CONTENTS),
+        sections="\n".join(sections),
+        footer=esc(f"Written by sweeper {VERSION} on {datetime.now():%Y-%m-%d %H:%M}."),
+        figure_count=str(len(book.figures)),
+        figures=figures_json(book),
+        page_js=page_js,
+        plotly_js=plotly_js,
+    )
+
+
+def figures_json(book: FigureBook) -> str:
+    """All figures as one JSON object keyed by element id, safe inside <script>."""
+    parts = [f'"{anchor}":{figure.to_json()}' for anchor, figure in book.figures.items()]
+    return script_json("{" + ",".join(parts) + "}")
+
+
+def _policy(*scripts: str) -> str:
+    # Only our two scripts may run and nothing may be fetched: the page works from disk.
+    hashes = " ".join(f"'sha256-{_digest(s)}'" for s in scripts)
+    return (
+        f"default-src 'none'; script-src {hashes}; style-src 'unsafe-inline'; "
+        "img-src data: blob:; font-src data:; connect-src 'none'; base-uri 'none'; "
+        "form-action 'none'"
+    )
+
+
+def _digest(script: str) -> str:
+    return base64.b64encode(hashlib.sha256(script.encode("utf-8")).digest()).decode("ascii")
+
+
+def _resource(name: str) -> str:
+    return resources.files("sweeper.dashboards").joinpath(name).read_text(encoding="utf-8")
+
+
+def _subheading(tables: StudyTables) -> str:
+    s = tables.summary
+    goal = f"{s.direction} {s.objective or 'value'}"
+    task = f"task {s.task}" if s.task else "no task recorded"
+    return f"{goal} · {task} · {len(tables.trials)} trials"
+
+
+def spec_section(tables: StudyTables) -> str:
+    text = tables.summary.spec_text
+    if not text:
+        return section("spec", "The spec", missing("The study does not store its spec."))
+    digest = f" (hash {tables.summary.spec_hash})" if tables.summary.spec_hash else ""
+    return section(
+        "spec",
+        "The spec",
+        f"<details><summary>{esc('Spec stored in the study' + digest)}</summary>"
+        f"<pre>{esc(text)}</pre></details>",
+    )
