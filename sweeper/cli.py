@@ -45,24 +45,35 @@ def check(specs: tuple[str, ...]) -> None:
 
 @main.command()
 @click.argument("spec_path", metavar="SPEC", type=click.Path(dir_okay=False))
-@click.option("--workers", type=int, help="Worker processes (overrides study.workers).")
+@click.option(
+    "--workers",
+    type=int,
+    help="Worker processes (overrides study.workers); 0 queues the trials for `sweeper worker`.",
+)
 @click.option("--trials", type=int, help="Trial budget (overrides study.trials).")
 @click.option("--storage", help="Study database: a .db path or a storage URL.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Summary path.")
+@click.option("--cluster", metavar="ADDRESS", help="Place the workers on this Dask scheduler.")
 def run(
     spec_path: str,
     workers: int | None,
     trials: int | None,
     storage: str | None,
     report_path: str | None,
+    cluster: str | None,
 ) -> None:
     """Create the study or continue it, run it to its budget, write the summary."""
-    from sweeper.launcher import run_sweep
+    from sweeper.launcher import queue_only, run_sweep
     from sweeper.spec import load_spec
 
-    spec = load_spec(spec_path).with_overrides(trials=trials, workers=workers, storage=storage)
-    result = run_sweep(spec)
-    _finish(result, report_path)
+    here = None if workers == 0 else workers
+    spec = load_spec(spec_path).with_overrides(trials=trials, workers=here, storage=storage)
+    if workers == 0:
+        result = queue_only(spec)
+        click.echo(result.snapshot.line())
+        click.echo(f"start workers with: sweeper worker {redact(spec.storage_location)}")
+        return
+    _finish(run_sweep(spec, cluster=cluster), report_path)
 
 
 @main.command()
@@ -80,6 +91,16 @@ def resume(
     _study, spec = load_existing(study_location)
     spec = spec.with_overrides(trials=trials, workers=workers, storage=study_location)
     _finish(run_sweep(spec), report_path)
+
+
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+def worker(study_location: str) -> None:
+    """Join a study from this host and work until its budget is met."""
+    from sweeper.launcher import join_sweep
+
+    result = join_sweep(study_location)
+    click.echo(result.snapshot.line())
 
 
 def _finish(result: object, report_path: str | None) -> None:

@@ -2,26 +2,26 @@
 
 from __future__ import annotations
 
-import datetime as dt
+import os
+import socket
 import threading
 from dataclasses import dataclass, field
 
 import optuna
-from optuna.storages import RetryHeartbeatStaleTrialCallback, fail_stale_trials
-from optuna.trial import TrialState
 
 from sweeper.checks import build_spec_task
+from sweeper.coordinator import Coordinator
 from sweeper.errors import Interrupted, RunFailure, TooManyFailures
 from sweeper.progress import ProgressDisplay, Snapshot, snapshot
+from sweeper.seeds import derive_seed
 from sweeper.spec import Spec
-from sweeper.storage import open_storage, redact, set_heartbeat
+from sweeper.storage import open_storage, redact, storage_url
 from sweeper.study import (
     budget_of,
     create_or_continue,
     quiet_optuna,
     request_stop,
     spec_attrs,
-    top_up,
 )
 from sweeper.workers import default_threads, install_stop_signals, run_parallel, work
 
@@ -59,10 +59,6 @@ def open_for_launch(spec: Spec) -> optuna.Study:
     quiet_optuna()
     baseline, task, description = _task_attrs(spec)
     storage = open_storage(spec.storage_location)
-    set_heartbeat(storage, spec.study.heartbeat)
-    storage.heartbeat_stale_trial_callback = RetryHeartbeatStaleTrialCallback(
-        max_retry=spec.study.max_retries
-    )
     attrs = spec_attrs(spec, baseline, task, description)
     attrs["metric_name"] = (
         "value" if spec.is_objective_plugin else build_spec_task(spec).metric_name
@@ -70,65 +66,71 @@ def open_for_launch(spec: Spec) -> optuna.Study:
     return create_or_continue(storage, spec, attrs)
 
 
-class Coordinator:
-    """Queue trials, fail stale ones (which queues their retries), and watch for failures."""
+@dataclass(frozen=True)
+class Placement:
+    """Where the workers run: here (in-process or a local pool), or on a Dask cluster."""
 
-    def __init__(self, study: optuna.Study, spec: Spec, display: ProgressDisplay) -> None:
-        self.study = study
-        self.spec = spec
-        self.display = display
-        self.launched = dt.datetime.now()
-        self.queued = 0
-
-    def step(self) -> Snapshot:
-        fail_stale_trials(self.study)
-        self._check_failures()
-        self.queued += top_up(self.study, self.spec)
-        snap = snapshot(self.study, budget_of(self.spec), self.spec.study.workers)
-        self.display.update(snap)
-        return snap
-
-    def _check_failures(self) -> None:
-        limit = self.spec.study.max_failures
-        ended = [
-            t
-            for t in self.study.get_trials(deepcopy=False)
-            if t.datetime_complete is not None
-            and t.datetime_complete >= self.launched
-            and t.state in (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
-            and not (t.state == TrialState.FAIL and "failure" not in t.user_attrs)
-        ]
-        ended.sort(key=lambda t: (t.datetime_complete, t.number))
-        recent = ended[-limit:]
-        if len(recent) == limit and all(t.state == TrialState.FAIL for t in recent):
-            last = recent[-1].user_attrs["failure"]
-            reason = (
-                f"{limit} trials in a row failed; the last (trial {recent[-1].number}) raised "
-                f"{last['type']}: {last['message']}"
-            )
-            request_stop(self.study, reason)
-            raise TooManyFailures(redact(reason))
+    workers: int
+    threads: int
+    cluster: str | None = None  # a Dask scheduler address
+    joined: bool = False  # a `sweeper worker` that joined a study launched elsewhere
 
 
-def run_sweep(spec: Spec, display: ProgressDisplay | None = None) -> SweepResult:
+def run_sweep(
+    spec: Spec, display: ProgressDisplay | None = None, cluster: str | None = None
+) -> SweepResult:
     """Run the spec's study to its budget with ``spec.study.workers`` workers.
 
     The first SIGINT or SIGTERM asks every worker to stop at its next window boundary and
     raises Interrupted once they have; a second one raises KeyboardInterrupt at once.
     """
-    display = display or ProgressDisplay()
     study = open_for_launch(spec)
-    coordinator = Coordinator(study, spec, display)
     threads = spec.training.threads or default_threads(spec.study.workers)
+    if cluster:  # the cluster's workers bring their own cores
+        threads = spec.training.threads or 1
+    placement = Placement(spec.study.workers, threads, cluster)
+    return _drive(study, spec, placement, display or ProgressDisplay())
+
+
+def queue_only(spec: Spec) -> SweepResult:
+    """Create or continue the study and queue its trials; start no worker here."""
+    study = open_for_launch(spec)
+    coordinator = Coordinator(study, spec, ProgressDisplay(interval=0))
+    try:
+        snap = coordinator.step()
+    finally:
+        coordinator.close()
+    return SweepResult(study.study_name, spec.storage_location, snap, coordinator.queued)
+
+
+def join_sweep(location: str, display: ProgressDisplay | None = None) -> SweepResult:
+    """Work on an existing study from this host until its budget is met (`sweeper worker`).
+
+    Needs no spec file: the spec, telemetry and checkpoints come from the database. A first
+    signal stops only this worker; its trial is continued by another worker or on resume.
+    """
+    from sweeper.study import load_existing
+
+    quiet_optuna()
+    study, spec = load_existing(location)
+    threads = spec.training.threads or default_threads(1)
+    return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
+
+
+def _drive(
+    study: optuna.Study, spec: Spec, placement: Placement, display: ProgressDisplay
+) -> SweepResult:
+    coordinator = Coordinator(study, spec, display)
     stop = threading.Event()
     restore = install_stop_signals(stop)
     try:
         with display:
             before = coordinator.step().counts
-            _watch(coordinator, spec, threads, stop)
-            final = snapshot(study, budget_of(spec), spec.study.workers)
+            _watch(coordinator, spec, placement, stop)
+            final = snapshot(study, budget_of(coordinator.spec), coordinator.spec.study.workers)
             display.final(final)
     finally:
+        coordinator.close()
         if restore is not None:
             restore()
     ran = final.counts.finished + final.counts.failed - before.finished - before.failed
@@ -158,19 +160,34 @@ def _short(value: object) -> str:
 
 def _start_workers(
     spec: Spec,
-    threads: int,
+    placement: Placement,
     stop: threading.Event,
     finished: threading.Event,
     errors: list[BaseException],
 ) -> threading.Thread:
-    location, name = spec.storage_location, spec.study.name
-    if spec.study.workers > 1:
-        return run_parallel(location, name, spec.study.workers, threads, finished.set, errors)
+    location, name = storage_url(spec.storage_location), spec.study.name
+    if placement.cluster:
+        from sweeper.cluster import run_on_cluster
+
+        return run_on_cluster(
+            placement.cluster,
+            location,
+            name,
+            placement.workers,
+            placement.threads,
+            finished.set,
+            errors,
+        )
+    if placement.workers > 1:
+        return run_parallel(
+            location, name, placement.workers, placement.threads, finished.set, errors
+        )
+    index = derive_seed(socket.gethostname(), os.getpid()) % 10_000 if placement.joined else 0
 
     # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.
     def single() -> None:
         try:
-            work(location, name, 0, threads, stop)
+            work(location, name, index, placement.threads, stop)
         except BaseException as error:  # surfaced in the launcher
             errors.append(error)
         finally:
@@ -181,21 +198,23 @@ def _start_workers(
     return thread
 
 
-def _watch(coordinator: Coordinator, spec: Spec, threads: int, stop: threading.Event) -> None:
+def _watch(
+    coordinator: Coordinator, spec: Spec, placement: Placement, stop: threading.Event
+) -> None:
     finished = threading.Event()
     errors: list[BaseException] = []
-    thread = _start_workers(spec, threads, stop, finished, errors)
+    thread = _start_workers(spec, placement, stop, finished, errors)
     try:
         while not finished.wait(WATCH_SECONDS):
             if stop.is_set():
-                _stop_workers(coordinator, finished)
+                _stop_workers(coordinator, finished, placement.joined)
             coordinator.step()
     except TooManyFailures:
         finished.wait(60)
         raise
     thread.join(timeout=5)
     if stop.is_set():
-        _stop_workers(coordinator, finished)
+        _stop_workers(coordinator, finished, placement.joined)
     if errors:
         error = errors[0]
         if isinstance(error, RunFailure):
@@ -204,12 +223,18 @@ def _watch(coordinator: Coordinator, spec: Spec, threads: int, stop: threading.E
     coordinator.step()
 
 
-def _stop_workers(coordinator: Coordinator, finished: threading.Event) -> None:
-    """Ask every worker to stop, wait for them briefly, then leave with exit code 130."""
+def _stop_workers(coordinator: Coordinator, finished: threading.Event, joined: bool) -> None:
+    """Ask the workers to stop, wait for them briefly, then leave with exit code 130."""
+    location = redact(coordinator.spec.storage_location)
+    if joined:  # only this worker stops; the study goes on elsewhere
+        finished.wait(STOP_WAIT_SECONDS)
+        raise Interrupted(
+            "interrupted; this worker's trial will be continued by another worker, or with: "
+            f"sweeper resume {location}"
+        )
     request_stop(coordinator.study, "interrupted")
     finished.wait(STOP_WAIT_SECONDS)
-    location = coordinator.spec.storage_location
     raise Interrupted(
         f"interrupted; the study keeps its trials and checkpoints. "
-        f"Continue with: sweeper resume {redact(location)}"
+        f"Continue with: sweeper resume {location}"
     )

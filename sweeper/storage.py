@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import os
 import random
 import re
+import socket
 import time
 import warnings
 from collections.abc import Callable
@@ -59,7 +61,15 @@ def _set_sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
 def engine_options(url: str) -> dict[str, Any]:
     if is_sqlite(url):
         return {"connect_args": {"timeout": BUSY_TIMEOUT_SECONDS}}
-    return {"pool_pre_ping": True, "pool_size": 2, "max_overflow": 1}
+    # A worker needs a connection for its trial, one for its heartbeat thread and one for
+    # its stop watcher: at most three per process, named so pg_stat_activity shows whose.
+    name = f"sweeper {socket.gethostname()}:{os.getpid()}"[:63]
+    return {
+        "pool_pre_ping": True,
+        "pool_size": 2,
+        "max_overflow": 1,
+        "connect_args": {"application_name": name},
+    }
 
 
 def open_storage(
