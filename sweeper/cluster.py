@@ -55,5 +55,6 @@ def _run(address: str, location: str, study_name: str, workers: int, threads: in
         ) from None
     with client, joblib.parallel_config(backend="dask"):
         joblib.Parallel(n_jobs=workers)(
-            joblib.delayed(work)(location, study_name, index, threads) for index in range(workers)
+            joblib.delayed(work)(location, study_name, index, threads, None, False, True)
+            for index in range(workers)
         )

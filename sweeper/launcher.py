@@ -22,6 +22,7 @@ from sweeper.study import (
     quiet_optuna,
     request_stop,
     spec_attrs,
+    stop_requested,
 )
 from sweeper.workers import default_threads, install_stop_signals, run_parallel, work
 
@@ -109,10 +110,11 @@ def join_sweep(location: str, display: ProgressDisplay | None = None) -> SweepRe
     Needs no spec file: the spec, telemetry and checkpoints come from the database. A first
     signal stops only this worker; its trial is continued by another worker or on resume.
     """
-    from sweeper.study import load_existing
+    from sweeper.study import STOP_ATTR, load_existing
 
     quiet_optuna()
     study, spec = load_existing(location)
+    study.set_user_attr(STOP_ATTR, None)  # joining means: work on it again, as resume does
     threads = spec.training.threads or default_threads(1)
     return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
 
@@ -206,6 +208,8 @@ def _watch(
     thread = _start_workers(spec, placement, stop, finished, errors)
     try:
         while not finished.wait(WATCH_SECONDS):
+            if stop_requested(coordinator.study) is not None:
+                stop.set()  # relayed to the in-process worker (set here or by another host)
             if stop.is_set():
                 _stop_workers(coordinator, finished, placement.joined)
             coordinator.step()

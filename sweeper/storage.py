@@ -30,6 +30,13 @@ def redact(text: str) -> str:
     return _PASSWORD.sub(lambda m: f"{m['head']}***{m['tail']}", text)
 
 
+def describe_error(error: BaseException) -> str:
+    """A database error as one line, without the password or SQLAlchemy's help link."""
+    text = str(getattr(error, "orig", None) or error)
+    text = " ".join(text.split())
+    return redact(text.split("(Background on this error")[0].strip())
+
+
 def storage_url(location: str) -> str:
     """Turn a ``.db`` path or a URL into a SQLAlchemy URL."""
     if "://" in location:
@@ -82,8 +89,25 @@ def open_storage(
     """Open the study database at ``location``; each process must call this itself.
 
     ``create=False`` refuses a SQLite file that does not exist yet (for commands that only read).
+    Within one process the storage, and so its connection pool, is shared: the coordinator
+    and an in-process worker together stay within the pool's three connections.
     """
     url = storage_url(location)
+    key = (os.getpid(), url)
+    path = sqlite_path(url)
+    if key in _OPEN and (path is None or path.exists()):
+        return _OPEN[key]
+    storage = _open(url, create, heartbeat, stale_callback)
+    _OPEN[key] = storage
+    return storage
+
+
+_OPEN: dict[tuple[int, str], optuna.storages.RDBStorage] = {}
+
+
+def _open(
+    url: str, create: bool, heartbeat: bool, stale_callback: Any
+) -> optuna.storages.RDBStorage:
     path = sqlite_path(url)
     if path is not None:
         if not create and not path.exists():
@@ -100,7 +124,7 @@ def open_storage(
                 heartbeat_stale_trial_callback=stale_callback,
             )
     except (sa.exc.SQLAlchemyError, ImportError, ValueError) as error:
-        raise StorageFailure(f"cannot open storage {redact(url)}: {redact(str(error))}") from None
+        raise StorageFailure(f"cannot open storage {redact(url)}: {describe_error(error)}") from None
     if is_sqlite(url):
         sa.event.listen(storage.engine, "connect", _set_sqlite_pragmas)
         sa.event.listen(storage.engine, "begin", _begin_immediate)

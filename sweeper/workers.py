@@ -62,12 +62,15 @@ def work(
     threads: int,
     stop_event: threading.Event | None = None,
     own_signals: bool = False,
+    watch_requests: bool | None = None,
 ) -> WorkerSummary:
     """Claim and run queued trials until the budget is met or a stop is requested.
 
     Runs in a fresh process (or in the launcher for one worker); it opens its own storage after
     it starts, so no database connection ever crosses a fork. ``own_signals``: this process
     is a worker of its own, so its first Ctrl-C or SIGTERM stops at the next window boundary.
+    ``watch_requests`` (default: ``own_signals``): poll the study for a stop request; in the
+    launcher's own process its coordinator relays them instead.
     """
     import torch
 
@@ -77,7 +80,8 @@ def work(
     stop_event = stop_event or threading.Event()
     restore = install_stop_signals(stop_event) if own_signals else None
     try:
-        return _work(location, study_name, worker_index, stop_event)
+        watch = own_signals if watch_requests is None else watch_requests
+        return _work(location, study_name, worker_index, stop_event, watch)
     finally:
         torch.set_num_threads(previous)
         if restore is not None:
@@ -120,7 +124,11 @@ def _watch_stop_requests(
 
 
 def _work(
-    location: str, study_name: str, worker_index: int, stop_event: threading.Event
+    location: str,
+    study_name: str,
+    worker_index: int,
+    stop_event: threading.Event,
+    watch_requests: bool,
 ) -> WorkerSummary:
     quiet_optuna()
     study, spec = load_existing(location, study_name)
@@ -129,7 +137,8 @@ def _work(
     study.pruner = make_pruner(spec)
     context = _context(study, spec, worker_index, stop_event)
     done_event = threading.Event()
-    _watch_stop_requests(study, stop_event, done_event)
+    if watch_requests:  # in the launcher's process, its coordinator relays stop requests
+        _watch_stop_requests(study, stop_event, done_event)
     done = 0
     idle_since = time.monotonic()
     while not stop_event.is_set() and stop_requested(study) is None:

@@ -65,3 +65,38 @@ def in_tmp(tmp_path: Path) -> Iterator[Path]:
 
 def invoke(*args: str) -> Result:
     return CliRunner().invoke(main, list(args), catch_exceptions=False)
+
+
+def _postgres_server() -> str:
+    url = os.environ.get("SWEEPER_TEST_POSTGRES_URL", "")
+    if not url:
+        pytest.skip("no PostgreSQL server: set SWEEPER_TEST_POSTGRES_URL (see .ci/postgres.sh)")
+    return url
+
+
+@pytest.fixture
+def postgres_url() -> Iterator[str]:
+    """A fresh, empty database on the test server, dropped afterwards."""
+    import uuid
+
+    import sqlalchemy as sa
+
+    server = _postgres_server()
+    name = f"sweeper_{uuid.uuid4().hex[:12]}"
+    admin = sa.create_engine(server, isolation_level="AUTOCOMMIT")
+    with admin.connect() as connection:
+        connection.exec_driver_sql(f'CREATE DATABASE "{name}"')
+    try:
+        yield server.rsplit("/", 1)[0] + f"/{name}"
+    finally:
+        with admin.connect() as connection:
+            connection.exec_driver_sql(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+        admin.dispose()
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def storage_location(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    """Each storage test runs once on a SQLite file and once on a real PostgreSQL server."""
+    if request.param == "sqlite":
+        return str(tmp_path / "study.db")
+    return request.getfixturevalue("postgres_url")

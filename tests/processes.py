@@ -97,3 +97,10 @@ def cmdline(pid: int) -> str:
         return Path(f"/proc/{pid}/cmdline").read_bytes().replace(b"\0", b" ").decode()
     except FileNotFoundError:
         return ""
+
+
+def trials_at(location: str, name: str) -> list[optuna.trial.FrozenTrial]:
+    from sweeper.storage import open_storage
+
+    study = optuna.load_study(study_name=name, storage=open_storage(location, create=False))
+    return study.get_trials()
