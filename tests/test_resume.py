@@ -145,3 +145,25 @@ def test_sigkill_one_worker_then_resume(tmp_path: Path, moment: str) -> None:
         assert trial.user_attrs["epochs"] == 3
         assert proc.curves(db)[trial.number][-1][0] == 3
     assert proc.checkpoint_epochs(db) == {}, "finished trials keep no checkpoint"
+
+
+def test_second_ctrl_c_stops_at_once_and_resume_recovers(tmp_path: Path) -> None:
+    spec = _spec(tmp_path, trials=2, workers=1, epochs=3)
+    db = tmp_path / "runs" / "r.db"
+    launcher = proc.start(tmp_path, "run", spec.name)
+    proc.wait_for(lambda: proc.epoch_count(db) >= 1, 120, "a first epoch")
+    sent = time.monotonic()
+    launcher.send_signal(signal.SIGINT)
+    launcher.send_signal(signal.SIGINT)
+    assert launcher.wait(timeout=10) == 130
+    assert time.monotonic() - sent < 3, "the second Ctrl-C does not wait for the workers"
+    left = [t for t in proc.trials(db, "r") if t.state in (TrialState.RUNNING, TrialState.FAIL)]
+    assert left, "the trial in flight is left running (or marked interrupted) for resume"
+
+    resumed = proc.run(tmp_path, "resume", "runs/r.db")
+    assert resumed.returncode == 0, resumed.stderr
+    trials = proc.trials(db, "r")
+    assert sum(t.state == TrialState.COMPLETE for t in trials) == 2
+    _finished_once(trials)
+    status = proc.run(tmp_path, "status", "runs/r.db")
+    assert "retries" in status.stdout  # which trial retried which
