@@ -16,6 +16,7 @@ from sweeper.errors import (
 from sweeper.launcher import SweepResult, run_sweep
 from sweeper.params import TrialParams
 from sweeper.report import build_report, export_study
+from sweeper.saved_model import load_model
 from sweeper.spec import Spec, load_spec, parse_spec
 from sweeper.tasks.base import Baseline, SequenceSet, Task
 from sweeper.telemetry import EpochRecord
@@ -40,6 +41,7 @@ __all__ = [
     "TrialParams",
     "build_report",
     "export_study",
+    "load_model",
     "load_spec",
     "parse_spec",
     "run_sweep",

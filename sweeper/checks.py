@@ -98,12 +98,36 @@ def _check_unroll(spec: Spec, task: Task) -> None:
 
 
 def _check_sampler(spec: Spec) -> None:
-    if spec.study.sampler != "grid":
-        return
+    if spec.study.sampler == "grid":
+        _check_grid(spec)
+    elif spec.study.sampler == "cmaes":
+        _check_cmaes(spec)
+
+
+def _check_grid(spec: Spec) -> None:
     if grid_size(spec.search) is None:
         name = next(n for n, e in spec.search.items() if isinstance(e, Range) and e.grid() is None)
         raise SpecError(
             spec.source,
             f"search.{name}",
             "the grid sampler needs every range to have a step (or use one_of); add step = ...",
+        )
+
+
+def _check_cmaes(spec: Spec) -> None:
+    # optuna's CmaEsSampler leaves choices to random sampling with only a log line; refuse
+    # them rather than run part of the search at random unawares.
+    for name, entry in spec.search.items():
+        if isinstance(entry, Choices):
+            raise SpecError(
+                spec.source,
+                f"search.{name}",
+                "the cmaes sampler searches ranges only; write this as "
+                '{ between = [low, high] }, fix it to one value, or use sampler = "tpe"',
+            )
+    if not any(isinstance(entry, Range) for entry in spec.search.values()):
+        raise SpecError(
+            spec.source,
+            "search",
+            'the cmaes sampler needs at least one range to search; add one, or use sampler = "tpe"',
         )

@@ -170,5 +170,53 @@ def export(study_location: str, fmt: str, output: str) -> None:
         click.echo(str(path))
 
 
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+@click.argument("trial_number", metavar="TRIAL", type=click.IntRange(min=0))
+def replay(study_location: str, trial_number: int) -> None:
+    """Retrain one trial from its parameters and seed; compare each epoch with its record.
+
+    Exits 0 when every recorded value agrees exactly, 1 when any differs.
+    """
+    from sweeper.replay import epoch_lines, header_lines, plan_replay, run_replay, verdict_line
+    from sweeper.study import load_existing
+
+    study, spec = load_existing(study_location)
+    plan = plan_replay(study, spec, trial_number)
+    click.echo("\n".join(header_lines(plan)))
+    comparisons = run_replay(plan, lambda c: click.echo("\n".join(epoch_lines(c))))
+    click.echo(verdict_line(comparisons))
+    if any(c.differing for c in comparisons):
+        click.get_current_context().exit(1)
+
+
+@main.command()
+@click.argument("study_location", metavar="STUDY")
+@click.option("--retrain", is_flag=True, help="Fit the best configuration on train + valid data.")
+@click.option(
+    "--save", "save_path", type=click.Path(dir_okay=False), help="Where --retrain saves the model."
+)
+def best(study_location: str, retrain: bool, save_path: str | None) -> None:
+    """Print the best parameters as a spec fragment (TOML).
+
+    With --retrain --save PATH, train them on the training plus validation data for the
+    epochs the trial ran, score the held-out split and save the model (sweeper.load_model).
+    """
+    from sweeper.best import epoch_line, fragment, refit_best, refit_lines, start_line
+    from sweeper.saved_model import save_model
+    from sweeper.study import load_existing
+
+    if retrain != (save_path is not None):
+        raise click.UsageError("--retrain and --save PATH go together")
+    study, spec = load_existing(study_location)
+    click.echo(fragment(study, spec))
+    if save_path is None:
+        return
+    click.echo(start_line(study, spec))
+    refit = refit_best(study, spec, lambda record: click.echo(epoch_line(record)))
+    click.echo("\n".join(refit_lines(refit)))
+    click.echo(f"# saved: {save_model(save_path, refit)}")
+
+
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())

@@ -24,17 +24,14 @@ def run_on_cluster(
     machines: a PostgreSQL URL, or a SQLite file on a disk they all share.
     """
 
-    def target() -> None:
-        try:
-            _run(address, location, study_name, workers, threads)
-        except BaseException as error:  # surfaced by the launcher
-            errors.append(error)
-        finally:
-            on_done()
+    from sweeper.workers import in_background
 
-    thread = threading.Thread(target=target, name="sweeper-cluster", daemon=True)
-    thread.start()
-    return thread
+    return in_background(
+        lambda: _run(address, location, study_name, workers, threads),
+        "sweeper-cluster",
+        on_done,
+        errors,
+    )
 
 
 def _run(address: str, location: str, study_name: str, workers: int, threads: int) -> None:

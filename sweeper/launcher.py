@@ -24,7 +24,13 @@ from sweeper.study import (
     spec_attrs,
     stop_requested,
 )
-from sweeper.workers import default_threads, install_stop_signals, run_parallel, work
+from sweeper.workers import (
+    default_threads,
+    in_background,
+    install_stop_signals,
+    run_parallel,
+    work,
+)
 
 WATCH_SECONDS = 0.5
 STOP_WAIT_SECONDS = 8.0
@@ -187,17 +193,12 @@ def _start_workers(
     index = derive_seed(socket.gethostname(), os.getpid()) % 10_000 if placement.joined else 0
 
     # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.
-    def single() -> None:
-        try:
-            work(location, name, index, placement.threads, stop)
-        except BaseException as error:  # surfaced in the launcher
-            errors.append(error)
-        finally:
-            finished.set()
-
-    thread = threading.Thread(target=single, name="sweeper-worker", daemon=True)
-    thread.start()
-    return thread
+    return in_background(
+        lambda: work(location, name, index, placement.threads, stop),
+        "sweeper-worker",
+        finished.set,
+        errors,
+    )
 
 
 def _watch(

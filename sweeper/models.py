@@ -1,8 +1,14 @@
-"""Elman RNN / GRU / LSTM with a linear output head, built from a trial's parameters."""
+"""Elman RNN / GRU / LSTM with a linear output head, built from a trial's parameters.
+
+``Recurrent`` is what the trainer needs of any model, the built-in one or a spec's own
+(``sweeper.model_plugin``): ``model(x, state) -> (outputs, state)`` on batch-first inputs
+[B, T, F] with outputs [B, T, O], ``initial_state(batch)`` and ``detach_state(state)``.
+"""
 
 from __future__ import annotations
 
-from typing import Any
+from collections.abc import Callable, Iterator
+from typing import Any, Protocol
 
 import torch
 from torch import nn
@@ -11,6 +17,32 @@ from sweeper.params import TrialParams
 
 # LSTM carries (h, c); the other cells carry h alone. Each is [layers, batch, hidden].
 State = torch.Tensor | tuple[torch.Tensor, torch.Tensor]
+
+
+class Recurrent(Protocol):
+    """The model contract the truncated-BPTT loop relies on (an nn.Module that also has these)."""
+
+    def __call__(self, x: torch.Tensor, state: Any) -> tuple[torch.Tensor, Any]: ...
+
+    def initial_state(self, batch: int) -> Any: ...
+
+    def detach_state(self, state: Any) -> Any: ...
+
+    def parameters(self, recurse: bool = True) -> Iterator[nn.Parameter]: ...
+
+    def state_dict(self) -> dict[str, Any]: ...
+
+    def load_state_dict(
+        self, state_dict: Any, strict: bool = True, assign: bool = False
+    ) -> Any: ...
+
+    def train(self, mode: bool = True) -> Any: ...
+
+    def eval(self) -> Any: ...
+
+
+# (trial parameters, input_size, output_size) -> a model; build_model is the built-in one.
+ModelBuilder = Callable[[TrialParams, int, int], Recurrent]
 
 
 class SequenceModel(nn.Module):

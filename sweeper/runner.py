@@ -91,12 +91,14 @@ def _continue_from_checkpoint(
 def _run_training(
     trial: optuna.Trial, ctx: TrialContext, params: dict, seed: int, origin: int
 ) -> float:
+    from sweeper.model_plugin import model_builder
     from sweeper.train import TrialRun, divergence_reason
 
     assert ctx.task is not None, "a training trial needs its task"
     training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
     trial.set_user_attr("training", training.as_dict())
-    run = TrialRun(ctx.task, training, seed)
+    build = model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
+    run = TrialRun(ctx.task, training, seed, build)
     _continue_from_checkpoint(trial, ctx, run, origin)
     compute = sum(record.seconds for record in run.records)
     value = objective_value(ctx.spec, run.records[-1]) if run.records else math.nan
@@ -114,6 +116,7 @@ def _run_training(
             trial.set_user_attr("diverged", True)
             trial.set_user_attr("end_reason", reason)
             trial.report(worst_value(ctx.spec), epoch)
+            trial.should_prune()  # the stopping rule records it too (ASHA ranks it in its rung)
             raise optuna.TrialPruned(reason)
         value = objective_value(ctx.spec, record)
         trial.report(value, epoch)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import math
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -18,16 +19,23 @@ from sweeper.suggest import closest
 
 GOALS = ("minimize", "maximize")
 OBJECTIVES = ("valid_loss", "valid_metric")
-SAMPLERS = ("tpe", "random", "sobol", "grid")
+SAMPLERS = ("tpe", "random", "sobol", "grid", "cmaes")
 RULES = ("none", "median", "asha", "hyperband")
 # Keys that may differ between launches of one study (everything else must match).
-MUTABLE_KEYS = ("study.trials", "study.workers", "study.storage", "study.heartbeat")
+MUTABLE_KEYS = (
+    "study.trials",
+    "study.compute_hours",
+    "study.workers",
+    "study.storage",
+    "study.heartbeat",
+)
 
 
 @dataclass(frozen=True)
 class StudySection:
     name: str
     trials: int = 20
+    compute_hours: float = 0.0  # a second budget: total compute of the trials; 0 = none
     workers: int = 1
     seed: int = 0
     goal: str = "minimize"
@@ -213,6 +221,10 @@ def _parse_study(source: str, table: Mapping[str, Any]) -> StudySection:
     _require_min(source, "study.max_failures", study.max_failures, 1)
     _require_min(source, "study.max_retries", study.max_retries, 0)
     _require_min(source, "study.heartbeat", study.heartbeat, 1)
+    hours = study.compute_hours
+    if not (math.isfinite(hours) and hours >= 0):
+        fix = f"must be a number of hours >= 0 (0 = no compute limit), got {hours}"
+        raise SpecError(source, "study.compute_hours", fix)
     return study
 
 

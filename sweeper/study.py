@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import warnings
 from collections import Counter
 from dataclasses import dataclass
@@ -40,32 +41,41 @@ def make_sampler(
     if name == "sobol":
         # One shared seed: the sequence is indexed by trial number, so workers never collide.
         return optuna.samplers.QMCSampler(qmc_type="sobol", scramble=True, seed=spec.study.seed)
+    if name == "cmaes":
+        # Stopped trials hold information too: without them CMA-ES waits for whole generations
+        # of trials that ran to the end.
+        return optuna.samplers.CmaEsSampler(seed=seed, consider_pruned_trials=True)
     # "random", and "grid", whose points arrive fully fixed through the queue.
     return optuna.samplers.RandomSampler(seed=seed)
 
 
 def make_pruner(spec: Spec) -> optuna.pruners.BasePruner:
+    rule = _rule_pruner(spec)
+    patience = spec.stopping.patience
+    if patience == 0:
+        return rule or optuna.pruners.NopPruner()
+    # A rule may stop a trial only after `patience` epochs without improvement; with no rule,
+    # that alone stops it.
+    return optuna.pruners.PatientPruner(rule, patience=patience)
+
+
+def _rule_pruner(spec: Spec) -> optuna.pruners.BasePruner | None:
     rule = spec.stopping
-    pruner: optuna.pruners.BasePruner
     if rule.rule == "median":
-        pruner = optuna.pruners.MedianPruner(
+        return optuna.pruners.MedianPruner(
             n_startup_trials=rule.warmup_trials, n_warmup_steps=rule.min_epochs
         )
-    elif rule.rule == "asha":
-        pruner = optuna.pruners.SuccessiveHalvingPruner(
+    if rule.rule == "asha":
+        return optuna.pruners.SuccessiveHalvingPruner(
             min_resource=rule.min_epochs, reduction_factor=rule.reduction
         )
-    elif rule.rule == "hyperband":
-        pruner = optuna.pruners.HyperbandPruner(
-            min_resource=rule.min_epochs,
-            max_resource=spec.training.epochs,
-            reduction_factor=rule.reduction,
+    if rule.rule == "hyperband":
+        # an objective plugin reports steps of its own: learn the longest from finished trials
+        longest = "auto" if spec.is_objective_plugin else spec.training.epochs
+        return optuna.pruners.HyperbandPruner(
+            min_resource=rule.min_epochs, max_resource=longest, reduction_factor=rule.reduction
         )
-    else:
-        return optuna.pruners.NopPruner()
-    if rule.patience > 0:
-        pruner = optuna.pruners.PatientPruner(pruner, patience=rule.patience)
-    return pruner
+    return None
 
 
 def spec_attrs(spec: Spec, baseline: dict[str, Any] | None, task: str, description: str) -> dict:
@@ -205,16 +215,79 @@ def budget_of(spec: Spec) -> int:
     return spec.study.trials
 
 
+def compute_seconds(trial: FrozenTrial) -> float:
+    value = trial.user_attrs.get("compute_seconds")
+    return float(value) if isinstance(value, int | float) else 0.0
+
+
+@dataclass(frozen=True)
+class ComputeUse:
+    """Compute seconds of a study's trials as the compute budget sees them.
+
+    Finished and running trials count; failed ones do not (a retry or a continuation carries
+    the compute of the trial it stands for, so counting both would count it twice).
+    """
+
+    spent: float  # finished trials, and running ones so far
+    committed: float  # as spent, with each running trial at least at the expected cost
+    expected: float | None  # the next trial's cost: the mean of the finished trials
+
+
+def compute_use(trials: list[FrozenTrial], before: int | None = None) -> ComputeUse:
+    """``before``: count only the running trials claimed before that trial number."""
+    done = [compute_seconds(t) for t in trials if t.state in FINISHED]
+    running = [
+        compute_seconds(t)
+        for t in trials
+        if t.state == TrialState.RUNNING and (before is None or t.number < before)
+    ]
+    expected = sum(done) / len(done) if done else None
+    floor = expected or 0.0
+    committed = sum(done) + sum(max(seconds, floor) for seconds in running)
+    return ComputeUse(sum(done) + sum(running), committed, expected)
+
+
+def compute_room(trials: list[FrozenTrial], spec: Spec, before: int | None = None) -> int | None:
+    """How many more trials the compute budget allows (None: it sets no limit).
+
+    A trial is launched only if its expected cost still fits. Before any trial has finished
+    there is no estimate: then one trial per worker, while the budget is not yet spent.
+    """
+    if spec.study.compute_hours <= 0:
+        return None
+    limit = spec.study.compute_hours * 3600
+    use = compute_use(trials, before)
+    if not use.expected:
+        return spec.study.workers if use.spent < limit else 0
+    return max(0, math.floor((limit - use.committed) / use.expected))
+
+
+def budget_met(trials: list[FrozenTrial], spec: Spec) -> bool:
+    """Whether a worker may stop: the trials are finished or no further trial fits."""
+    return tally(trials).finished >= budget_of(spec) or compute_room(trials, spec) == 0
+
+
+def claim_exceeds_budget(trials: list[FrozenTrial], trial_number: int, spec: Spec) -> bool:
+    """Whether a just-claimed trial exceeds the trial budget or the compute budget."""
+    if over_budget(trials, trial_number, budget_of(spec)):
+        return True
+    return compute_room(trials, spec, before=trial_number) == 0
+
+
 def top_up(study: optuna.Study, spec: Spec) -> int:
     """Queue as many trials as the budget still needs; only the launching process calls this.
 
     Budget = finished (complete + pruned) + running + waiting; failed trials do not count, so a
-    failure is replaced. Returns the number queued.
+    failure is replaced. Under a compute budget at most one trial per worker waits or runs, so
+    each launch decision uses the latest cost estimate. Returns the number queued.
     """
     requeue_interrupted(study)
     trials = study.get_trials(deepcopy=False)
     now = tally(trials)
     need = budget_of(spec) - now.finished - now.running - now.waiting
+    room = compute_room(trials, spec)
+    if room is not None:
+        need = min(need, room - now.waiting, spec.study.workers - now.running - now.waiting)
     if need <= 0:
         return 0
     if spec.study.sampler == "grid":

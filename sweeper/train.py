@@ -22,7 +22,7 @@ import torch
 import torch.nn.functional as F
 
 from sweeper.errors import Interrupted
-from sweeper.models import SequenceModel, State, build_model
+from sweeper.models import ModelBuilder, Recurrent, State, build_model
 from sweeper.params import TrialParams
 from sweeper.seeds import derive_seed
 from sweeper.tasks.base import Kind, SequenceSet, Task
@@ -75,7 +75,7 @@ def clip_gradients(parameters: Sequence[torch.Tensor], clip: float) -> torch.Ten
     return torch.nn.utils.clip_grad_norm_(parameters, clip if clip > 0 else math.inf)
 
 
-def build_optimizer(params: TrialParams, model: torch.nn.Module) -> torch.optim.Optimizer:
+def build_optimizer(params: TrialParams, model: Recurrent) -> torch.optim.Optimizer:
     weights = list(model.parameters())
     lr, decay = params.lr, params.weight_decay
     if params.optimizer == "sgd":
@@ -125,7 +125,9 @@ class _Tally:
 class TrialRun:
     """One trial, an epoch at a time: ``run_epoch()`` until done; ``state_dict()`` between."""
 
-    def __init__(self, task: Task, params: TrialParams, seed: int) -> None:
+    def __init__(
+        self, task: Task, params: TrialParams, seed: int, build: ModelBuilder = build_model
+    ) -> None:
         self.task = task
         self.params = params
         self.seed = seed
@@ -146,7 +148,7 @@ class TrialRun:
         np.random.seed(seed)
         torch.manual_seed(seed)
         try:
-            self.model: SequenceModel = build_model(params, task.input_size, task.output_size)
+            self.model: Recurrent = build(params, task.input_size, task.output_size)
             self.optimizer = build_optimizer(params, self.model)
             self._rng = _global_rng()
         finally:

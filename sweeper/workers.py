@@ -27,11 +27,12 @@ from sweeper.runner import (
 from sweeper.spec import Spec
 from sweeper.storage import backend_of, engine_of, redact, retry_locked, set_heartbeat
 from sweeper.study import (
+    budget_met,
     budget_of,
+    claim_exceeds_budget,
     load_existing,
     make_pruner,
     make_sampler,
-    over_budget,
     quiet_optuna,
     stop_requested,
     tally,
@@ -144,15 +145,17 @@ def _work(
     while not stop_event.is_set() and stop_requested(study) is None:
         trial_id = retry_locked(study._pop_waiting_trial_id)
         if trial_id is None:
-            now = tally(study.get_trials(deepcopy=False))
+            trials = study.get_trials(deepcopy=False)
             waited = time.monotonic() - idle_since
-            if now.finished >= budget_of(spec) or (
-                waited > IDLE_GIVE_UP_SECONDS and not now.running
+            if budget_met(trials, spec) or (
+                waited > IDLE_GIVE_UP_SECONDS and not tally(trials).running
             ):
                 break
             time.sleep(IDLE_POLL_SECONDS)
             continue
         if _give_back_if_surplus(study, spec, trial_id):
+            if budget_met(study.get_trials(deepcopy=False), spec):
+                break
             time.sleep(IDLE_POLL_SECONDS)
             continue
         run_claimed(study, trial_id, context)
@@ -165,11 +168,12 @@ def _work(
 def _give_back_if_surplus(study: optuna.Study, spec: Spec, trial_id: int) -> bool:
     """Return a claimed trial to the queue when the budget is already spoken for.
 
-    Happens when a launch lowers the budget below what earlier launches queued.
+    Happens when a launch lowers the budget below what earlier launches queued, and when
+    the next trial would overrun the compute budget.
     """
     trials = study.get_trials(deepcopy=False)
     number = next(t.number for t in trials if t._trial_id == trial_id)
-    if not over_budget(trials, number, budget_of(spec)):
+    if not claim_exceeds_budget(trials, number, spec):
         return False
     retry_locked(lambda: study._storage.set_trial_state_values(trial_id, TrialState.WAITING))
     return True
@@ -279,15 +283,31 @@ def run_parallel(
     """Start ``workers`` processes through joblib's process backend, from a helper thread."""
     import joblib
 
+    return in_background(
+        lambda: _parallel_until_done(joblib, location, study_name, workers, threads),
+        "sweeper-workers",
+        on_done,
+        errors,
+    )
+
+
+def in_background(
+    action: Callable[[], object],
+    name: str,
+    on_done: Callable[[], None],
+    errors: list[BaseException],
+) -> threading.Thread:
+    """Run ``action`` in a daemon thread; what it raises is kept in ``errors`` for the caller."""
+
     def target() -> None:
         try:
-            _parallel_until_done(joblib, location, study_name, workers, threads)
+            action()
         except BaseException as error:  # surfaced by the launcher
             errors.append(error)
         finally:
             on_done()
 
-    thread = threading.Thread(target=target, name="sweeper-workers", daemon=True)
+    thread = threading.Thread(target=target, name=name, daemon=True)
     thread.start()
     return thread
 

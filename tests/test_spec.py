@@ -63,19 +63,22 @@ def _error(text: str) -> str:
 @pytest.mark.parametrize(
     ("change", "expected"),
     [
-        (("[study]", "[study]\nnmae = 1"), "bad.toml: study.nmae: unknown key; did you mean 'name'?"),
+        (
+            ("[study]", "[study]\nnmae = 1"),
+            "bad.toml: study.nmae: unknown key; did you mean 'name'?",
+        ),
         (("trials = 4", 'trials = "four"'), "bad.toml: study.trials: must be an integer"),
         (("[2, 20]", "[20, 2]"), "bad.toml: search.unroll.between: empty range [20, 2]"),
         (("[0.1, 10.0], scale", "[0.0, 10.0], scale"), "bad.toml: search.clip.between: a log"),
         (("[2, 20]", "[2, 40]"), "bad.toml: search.unroll: unroll 40 is longer than the task"),
         (("hidden =", "hiden ="), "bad.toml: search.hiden: not a training parameter; did you mean"),
-        (("kind = \"adding\"", "kind = \"adder\""), "bad.toml: task.kind"),
+        (('kind = "adding"', 'kind = "adder"'), "bad.toml: task.kind"),
         (("length = 20", "lenght = 20"), "bad.toml: task.lenght"),
         (('cell = "gru"', 'cell = "tree"'), "bad.toml: training.cell: cell must be one of"),
         (("epochs = 2", "epochs = 0"), "bad.toml: training.epochs: must be at least 1"),
         (("[8, 16]", "[8, 8]"), "bad.toml: search.hidden.one_of: lists a value twice"),
         (("[2, 20] }", "[2.5, 20] }"), "bad.toml: search.unroll.between: must be whole numbers"),
-        (("dropout = 0.0", "cell = \"lstm\""), "bad.toml: search.cell: also set as training.cell"),
+        (("dropout = 0.0", 'cell = "lstm"'), "bad.toml: search.cell: also set as training.cell"),
     ],
 )
 def test_bad_specs_name_the_key_and_the_fix(change: tuple[str, str], expected: str) -> None:
@@ -96,7 +99,7 @@ def test_missing_sections_and_files(tmp_path: Path) -> None:
 
 
 def test_grid_needs_steps() -> None:
-    text = GOOD.replace('trials = 4', 'trials = 4\nsampler = "grid"')
+    text = GOOD.replace("trials = 4", 'trials = 4\nsampler = "grid"')
     assert "search.clip: the grid sampler needs every range to have a step" in _error(text)
     stepped = text.replace('{ between = [0.1, 10.0], scale = "log" }', "0.5").replace(
         '{ between = [1e-3, 1e-1], scale = "log" }', "{ between = [0.01, 0.03], step = 0.01 }"

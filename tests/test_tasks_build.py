@@ -30,7 +30,16 @@ def spec_error(options, base_dir=Path(".")) -> SpecError:
 
 
 def test_kinds():
-    assert TASK_KINDS == ("adding", "copy", "recall", "reber", "series", "text", "plugin")
+    assert TASK_KINDS == (
+        "adding",
+        "copy",
+        "recall",
+        "reber",
+        "series",
+        "text",
+        "sequences",
+        "plugin",
+    )
 
 
 def test_unknown_and_missing_kind():

@@ -1,7 +1,8 @@
 """Built-in sequence tasks and the plugin loaders.
 
 ``build_task`` turns a spec's ``[task]`` table into a ``Task``; ``kind`` picks the family
-and every other key is an option of that family.
+and every other key is an option of that family, except ``model`` and ``model_path``, which
+name the spec's own network (``sweeper.model_plugin``) and are checked here.
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from sweeper.errors import SpecError
-from sweeper.tasks import adding, copy_memory, plugin, reber, recall, series, text
+from sweeper.tasks import adding, copy_memory, plugin, reber, recall, sequences, series, text
 from sweeper.tasks.base import Baseline, SequenceSet, Task
 from sweeper.tasks.objective import load_objective
 from sweeper.tasks.options import unknown_key_message
@@ -23,6 +24,7 @@ _BUILDERS: dict[str, Callable[[Mapping[str, Any], Path, str], Task]] = {
     "reber": reber.build,
     "series": series.build,
     "text": text.build,
+    "sequences": sequences.build,
     "plugin": plugin.build,
 }
 TASK_KINDS = tuple(_BUILDERS)
@@ -42,5 +44,11 @@ def build_task(options: Mapping[str, Any], base_dir: Path, source: str) -> Task:
         raise SpecError(source, "task.kind", f"must be a string, got {kind!r}")
     if kind not in _BUILDERS:
         raise SpecError(source, "task.kind", unknown_key_message(kind, TASK_KINDS, "task kind"))
-    rest = {key: value for key, value in options.items() if key != "kind"}
-    return _BUILDERS[kind](rest, base_dir, source)
+    from sweeper.model_plugin import check_model, model_builder, task_options_without_model
+
+    rest = task_options_without_model(options)
+    rest.pop("kind")
+    builder = model_builder(options, base_dir, source)
+    task = _BUILDERS[kind](rest, base_dir, source)
+    check_model(builder, task, source)
+    return task

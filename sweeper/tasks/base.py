@@ -9,7 +9,7 @@ from typing import Literal
 import torch
 
 Kind = Literal["regression", "classification"]
-Split = Literal["train", "valid"]
+Split = Literal["train", "valid", "test"]
 
 
 @dataclass(frozen=True)
@@ -55,7 +55,8 @@ class Task(ABC):
     """A sequence task: data, loss kind, metric and baseline.
 
     Data depends only on the task's own options and seed, never on the trial, so that every
-    trial of a study sees the same sequences.
+    trial of a study sees the same sequences. A task whose data has a held-out "test" split
+    lists it in ``splits``; sweeps never read it.
     """
 
     name: str
@@ -65,10 +66,11 @@ class Task(ABC):
     length: int  # steps per sequence; the longest useful unroll
     metric_name: str
     metric_higher_is_better: bool
+    splits: tuple[Split, ...] = ("train", "valid")
 
     @abstractmethod
     def data(self, split: Split) -> SequenceSet:
-        """The training or validation sequences (cached after the first call)."""
+        """The sequences of one of ``splits`` (cached after the first call)."""
 
     @abstractmethod
     def baseline(self) -> Baseline:

@@ -10,14 +10,14 @@ from sweeper.tasks.base import SequenceSet, Split, Task
 
 
 class CachedTask(Task):
-    """Builds the train and valid splits on first use; later calls return the same objects."""
+    """Builds each split on first use; later calls return the same objects."""
 
     def __init__(self) -> None:
         self._cache: dict[str, SequenceSet] = {}
 
     def data(self, split: Split) -> SequenceSet:
-        if split not in ("train", "valid"):
-            raise ValueError(f"split must be 'train' or 'valid', got {split!r}")
+        if split not in self.splits:
+            raise ValueError(f"split must be one of {', '.join(self.splits)}, got {split!r}")
         if split not in self._cache:
             self._cache[split] = self._build(split)
         return self._cache[split]

@@ -95,6 +95,18 @@ def check_fraction(key: str, value: float) -> None:
         raise OptionError(key, f"must be strictly between 0 and 1, got {value!r}")
 
 
+def check_split_fractions(valid_fraction: float, test_fraction: float) -> None:
+    """A test fraction in [0, 1) that leaves rows to train on beside the validation ones."""
+    if not 0 <= test_fraction < 1:
+        raise OptionError("test_fraction", f"must be in [0, 1), got {test_fraction!r}")
+    if valid_fraction + test_fraction >= 1:
+        raise OptionError(
+            "test_fraction",
+            f"valid_fraction + test_fraction = {valid_fraction + test_fraction:g} leaves no "
+            "training rows; keep the sum below 1",
+        )
+
+
 @dataclass(frozen=True)
 class GeneratedOptions:
     """Options every generated task shares: the data seed and how many sequences to draw."""

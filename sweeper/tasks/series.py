@@ -1,9 +1,11 @@
-"""Forecast columns of a CSV file ``horizon`` steps ahead.
+"""Forecast columns of a CSV file or an NPZ archive ``horizon`` steps ahead.
 
-Rows are split in time order: the first rows train, the last ``valid_fraction`` of them
-validate. Each column is standardised with the mean and (population) standard deviation of
-the training rows only, so nothing about the validation rows leaks into training. Windows of
-``window`` steps never cross the split; the target at every step is the value ``horizon``
+A CSV has a header row; in an NPZ archive each 1-D array is one column, named by its key.
+Rows are split in time order: the first rows train, the next ``valid_fraction`` of them
+validate, and the last ``test_fraction`` (none by default) are a held-out tail that sweeps
+never read. Each column is standardised with the mean and (population) standard deviation of
+the training rows only, so nothing about the later rows leaks into training. Windows of
+``window`` steps never cross a split; the target at every step is the value ``horizon``
 rows later. Loss, metric and baseline are all mean squared errors in these scaled units.
 """
 
@@ -22,10 +24,12 @@ from sweeper.tasks import metrics
 from sweeper.tasks.base import Baseline, SequenceSet, Split
 from sweeper.tasks.cached import CachedTask
 from sweeper.tasks.files import resolve
+from sweeper.tasks.npz import NpzColumns, read_npz_columns
 from sweeper.tasks.options import (
     OptionError,
     check_at_least,
     check_fraction,
+    check_split_fractions,
     parse_options,
 )
 from sweeper.tasks.table import Table, read_table
@@ -40,6 +44,7 @@ class SeriesOptions:
     window: int = 50  # steps per sequence
     stride: int | None = None  # rows between window starts; the window when not given
     valid_fraction: float = 0.2
+    test_fraction: float = 0.0  # the held-out tail; 0 = none
 
     def __post_init__(self) -> None:
         for key in ("columns", "target"):
@@ -50,6 +55,7 @@ class SeriesOptions:
         if self.stride is not None:
             check_at_least("stride", self.stride, 1)
         check_fraction("valid_fraction", self.valid_fraction)
+        check_split_fractions(self.valid_fraction, self.test_fraction)
 
 
 @dataclass(frozen=True, eq=False)
@@ -88,7 +94,7 @@ class SeriesTask(CachedTask):
         super().__init__()
         self.options = options
         self.path = resolve(options.file, base_dir, source)
-        table = read_table(self.path, source)
+        table = read_columns(self.path, source)
         self.columns = options.columns or _default_columns(table, source)
         self.target = options.target or self.columns
         self.length = options.window
@@ -96,29 +102,43 @@ class SeriesTask(CachedTask):
         self.stride = options.stride or options.window
         inputs = table.values(self.columns, source, "task.columns")
         targets = table.values(self.target, source, "task.target")
-        self.train_rows = len(inputs) - round(len(inputs) * options.valid_fraction)
-        self._check_split_sizes(len(inputs), source)
+        self.test_rows = round(len(inputs) * options.test_fraction)
+        self.valid_end = len(inputs) - self.test_rows
+        self.train_rows = self.valid_end - round(len(inputs) * options.valid_fraction)
+        self.splits = ("train", "valid", "test") if self.test_rows else ("train", "valid")
+        self._check_split_sizes(source)
         train = slice(0, self.train_rows)
         self.input_scaling = fit_scaling(inputs[train], self.columns, source, "task.columns")
         self.target_scaling = fit_scaling(targets[train], self.target, source, "task.target")
         self._inputs = self.input_scaling.apply(inputs)
         self._targets = self.target_scaling.apply(targets)
 
-    def _check_split_sizes(self, total: int, source: str) -> None:
+    def _check_split_sizes(self, source: str) -> None:
         need = self.options.window + self.options.horizon
-        for part, rows in (("training", self.train_rows), ("validation", total - self.train_rows)):
-            if rows < need:
+        names = {"train": "training", "valid": "validation", "test": "test"}
+        for split in self.splits:
+            first, end = self.rows(split)
+            if end - first < need:
                 raise SpecError(
                     source,
                     "task.window",
-                    f"the {part} part of {self.path.name} has {rows} rows, but one window "
-                    f"needs window + horizon = {need}; shorten window or change valid_fraction",
+                    f"the {names[split]} part of {self.path.name} has {end - first} rows, but "
+                    f"one window needs window + horizon = {need}; shorten window or change "
+                    f"valid_fraction / test_fraction",
                 )
+
+    def rows(self, split: Split) -> tuple[int, int]:
+        """First row and end row (exclusive) of ``split``."""
+        bounds = {
+            "train": (0, self.train_rows),
+            "valid": (self.train_rows, self.valid_end),
+            "test": (self.valid_end, self.valid_end + self.test_rows),
+        }
+        return bounds[split]
 
     def starts(self, split: Split) -> range:
         """First row of each window of ``split``; windows and their targets stay inside it."""
-        first, end = (0, self.train_rows) if split == "train" else (self.train_rows, None)
-        end = len(self._inputs) if end is None else end
+        first, end = self.rows(split)
         last = end - self.options.window - self.options.horizon
         return range(first, last + 1, self.stride)
 
@@ -136,7 +156,11 @@ class SeriesTask(CachedTask):
         return _tensor(np.stack([self._targets[s : s + window] for s in self.starts(split)]))
 
     def baseline(self) -> Baseline:
-        value = metrics.mse(self.persistence("valid"), self.data("valid"))
+        return self.baseline_on("valid")
+
+    def baseline_on(self, split: Split) -> Baseline:
+        """The persistence forecast's MSE on ``split`` (the sweep's baseline is on "valid")."""
+        value = metrics.mse(self.persistence(split), self.data(split))
         return Baseline(
             value,
             "valid_loss",
@@ -149,7 +173,14 @@ class SeriesTask(CachedTask):
         return metrics.mse(outputs, data)
 
 
-def _default_columns(table: Table, source: str) -> tuple[str, ...]:
+def read_columns(path: Path, source: str) -> Table | NpzColumns:
+    """An NPZ archive by its suffix; anything else is read as CSV."""
+    if path.suffix.lower() == ".npz":
+        return read_npz_columns(path, source)
+    return read_table(path, source)
+
+
+def _default_columns(table: Table | NpzColumns, source: str) -> tuple[str, ...]:
     numeric = table.numeric_columns()
     if not numeric:
         raise SpecError(

@@ -62,10 +62,20 @@ class Table:
             raise SpecError(
                 source,
                 "task.file",
-                f"non-numeric cell {cell!r} in column {self.columns[i]!r} at row {r + 1} "
+                f"{_cell_kind(cell)} cell {cell!r} in column {self.columns[i]!r} at row {r + 1} "
                 f"(line {self.lines[r]} of {self.path.name}); fix the cell or drop the row",
             )
         return value
+
+
+def _cell_kind(cell: str) -> str:
+    if not cell:
+        return "empty"
+    try:
+        float(cell)
+    except ValueError:
+        return "non-numeric"
+    return "NaN or infinite"
 
 
 def _number(cell: str) -> float | None:

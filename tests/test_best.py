@@ -1,0 +1,263 @@
+"""`sweeper best STUDY [--retrain --save PATH]` and `sweeper.load_model`."""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import optuna
+import pytest
+import torch
+
+import sweeper
+from sweeper.best import refit_best, toml_value
+from sweeper.params import TrialParams
+from sweeper.spec import parse_spec
+from sweeper.storage import open_storage
+from sweeper.study import load_existing
+from tests.conftest import invoke, write_tiny_spec
+
+SERIES = """
+[study]
+name = "tanks"
+trials = 3
+seed = 8
+
+[task]
+kind = "series"
+file = "tanks.csv"
+columns = ["level", "inflow"]
+target = "level"
+horizon = 2
+window = 16
+stride = 4
+valid_fraction = 0.2
+test_fraction = 0.2
+
+[training]
+epochs = 4
+threads = 1
+cell = "gru"
+
+[search]
+unroll = { one_of = [8, 16] }
+hidden = { one_of = [8, 16] }
+lr = { between = [0.005, 0.03], scale = "log" }
+"""
+
+
+def tanks(folder: Path) -> np.ndarray:
+    """A water tank: the level follows the inflow with a lag (an invented plant)."""
+    t = np.arange(400)
+    inflow = 2 + np.sin(t / 9) + 0.3 * np.cos(t / 2.3)
+    level = 10 + np.convolve(inflow, np.ones(6) / 6, mode="full")[: len(t)] * 3
+    raw = np.column_stack([level, inflow])
+    lines = ["hour,level,inflow"] + [f"{i},{a!r},{b!r}" for i, (a, b) in enumerate(raw.tolist())]
+    (folder / "tanks.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (folder / "tanks.toml").write_text(SERIES, encoding="utf-8")
+    assert invoke("run", "tanks.toml", "--report", "tanks.html").exit_code == 0
+    return raw
+
+
+def test_fragment_is_toml_with_the_best_trials_training_parameters(in_tmp: Path) -> None:
+    spec = write_tiny_spec(in_tmp, trials=3, epochs=2, extra="")
+    spec.write_text(spec.read_text().replace("batch = 32", "batch = 32\nthreads = 1"))
+    assert invoke("run", spec.name, "--report", "t.html").exit_code == 0
+    result = invoke("best", "runs/tiny.db")
+    assert result.exit_code == 0, result.output
+    study = optuna.load_study(study_name="tiny", storage=open_storage("runs/tiny.db"))
+    best = study.best_trial
+    first = result.output.splitlines()[0]
+    assert first == (
+        f"# best of 'tiny': trial {best.number}, valid_loss {best.value!r} after 2 epochs, "
+        f"seed {best.user_attrs['seed']}"
+    )
+    table = tomllib.loads(result.output)["training"]
+    assert table == {"epochs": 2, **best.user_attrs["training"]}
+    # pasted over the spec's [training] and [search], it fixes the best configuration
+    head = spec.read_text().split("[training]")[0]
+    fixed = parse_spec(head + result.output, "fixed.toml")
+    assert not fixed.search and fixed.training.epochs == 2
+    assert (
+        TrialParams.from_mapping(fixed.training.defaults).as_dict() == best.user_attrs["training"]
+    )
+
+
+@pytest.mark.parametrize("value", [1e-05, 0.1, 1 / 3, 2.0, -7.25e300, math.inf, 3, True, "lstm"])
+def test_toml_values_read_back_exactly(value: object) -> None:
+    assert tomllib.loads(f"x = {toml_value(value)}")["x"] == value
+
+
+def test_retrain_and_save_go_together(in_tmp: Path) -> None:
+    assert invoke("best", "x.db", "--retrain").exit_code == 2
+    assert invoke("best", "x.db", "--save", "m.pt").exit_code == 2
+
+
+def test_no_completed_trial_exits_2(in_tmp: Path) -> None:
+    (in_tmp / "best_flaky.py").write_text(
+        "def score(params, report):\n    raise RuntimeError('sensor offline')\n", encoding="utf-8"
+    )
+    (in_tmp / "flaky.toml").write_text(
+        '[study]\nname = "flaky"\ntrials = 1\nmax_failures = 1\n\n[task]\nkind = "objective"\n'
+        'function = "best_flaky:score"\n\n[search]\nx = { between = [0.0, 1.0] }\n',
+        encoding="utf-8",
+    )
+    assert invoke("run", "flaky.toml", "--report", "f.html").exit_code == 1
+    result = invoke("best", "runs/flaky.db")
+    assert result.exit_code == 2
+    assert result.output == (
+        "sweeper: error: study 'flaky' has no completed trial yet; run or resume it first\n"
+    )
+
+
+def test_objective_plugin_best_is_a_search_table_of_fixed_values(in_tmp: Path) -> None:
+    (in_tmp / "best_bowl.py").write_text(
+        "def score(params, report):\n    return (params['x'] - 1) ** 2\n", encoding="utf-8"
+    )
+    (in_tmp / "bowl.toml").write_text(
+        '[study]\nname = "bowl"\ntrials = 4\n\n[task]\nkind = "objective"\n'
+        'function = "best_bowl:score"\n\n[search]\nx = { between = [-2.0, 2.0] }\n',
+        encoding="utf-8",
+    )
+    ran = invoke("run", "bowl.toml", "--report", "b.html")
+    assert ran.exit_code == 0, ran.output
+    result = invoke("best", "runs/bowl.db")
+    assert result.exit_code == 0, result.output
+    study = optuna.load_study(study_name="bowl", storage=open_storage("runs/bowl.db"))
+    assert tomllib.loads(result.output) == {"search": {"x": study.best_trial.params["x"]}}
+    assert invoke("best", "runs/bowl.db", "--retrain", "--save", "m.pt").exit_code == 2
+
+
+def test_retrain_fits_train_plus_valid_and_scores_the_test_tail(in_tmp: Path) -> None:
+    tanks(in_tmp)
+    study, spec = load_existing("runs/tanks.db")
+    refit = refit_best(study, spec)
+    assert refit.refit.held_out == "test" and len(refit.run.records) == 4
+    joined = len(refit.task.data("train")) + len(refit.task.data("valid"))
+    assert len(refit.refit.data("train")) == joined
+    assert refit.held_out.valid_loss < refit.baseline().value  # beats persistence on the tail
+
+
+CHILD = """
+import sys, numpy, torch, sweeper
+torch.set_num_threads(int(sys.argv[3]))
+model = sweeper.load_model(sys.argv[1])
+numpy.save(sys.argv[2], model(numpy.load(sys.argv[2] + ".in.npy")).numpy())
+"""
+
+
+def test_saved_model_forecasts_in_a_fresh_process_equal_the_refit_models(in_tmp: Path) -> None:
+    raw = tanks(in_tmp)
+    result = invoke("best", "runs/tanks.db", "--retrain", "--save", "final/tanks.pt")
+    assert result.exit_code == 0, result.output
+    assert result.output.splitlines()[-1] == "# saved: final/tanks.pt"
+    tomllib.loads(result.output)  # the progress lines are comments: still one TOML fragment
+    # the sweep's final fit, in this process, on the raw test windows (rows 320..399)
+    study, spec = load_existing("runs/tanks.db")
+    refit = refit_best(study, spec)
+    task = refit.task
+    windows = np.stack([raw[s : s + 16] for s in task.starts("test")])
+    scaled = torch.from_numpy(task.input_scaling.apply(windows)).float()
+    with torch.no_grad():
+        refit.run.model.eval()
+        outputs, _ = refit.run.model(scaled, refit.run.model.initial_state(len(windows)))
+    expected = task.target_scaling.invert(outputs.numpy())
+    # the saved model, loaded by a fresh interpreter
+    np.save(in_tmp / "out.npy.in.npy", windows)
+    threads = str(torch.get_num_threads())
+    child = [sys.executable, "-c", CHILD, "final/tanks.pt", str(in_tmp / "out.npy"), threads]
+    done = subprocess.run(child, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    forecasts = np.load(in_tmp / "out.npy")
+    assert forecasts.shape == (len(windows), 16, 1)
+    assert np.array_equal(forecasts, expected)
+    # in the units of the file: close to the level two hours on
+    truth = np.stack([raw[s + 2 : s + 18, :1] for s in task.starts("test")])
+    assert np.mean((forecasts - truth) ** 2) < np.mean((windows[..., :1] - truth) ** 2)
+
+
+def test_loaded_model_describes_its_task_and_scaling(in_tmp: Path) -> None:
+    tanks(in_tmp)
+    assert invoke("best", "runs/tanks.db", "--retrain", "--save", "m.pt").exit_code == 0
+    model = sweeper.load_model("m.pt")
+    info = model.info
+    assert (info["task"], info["kind"], info["horizon"]) == ("series", "regression", 2)
+    assert (info["columns"], info["target"]) == (["level", "inflow"], ["level"])
+    assert info["held_out"] == "test" and info["study"] == "tanks"
+    assert info["spec_text"] == SERIES
+    _study, spec = load_existing("runs/tanks.db")
+    task = sweeper.tasks.build_task(spec.task, spec.base_dir, spec.source)
+    mean, std = model.target_scaling
+    assert mean.tolist() == task.target_scaling.mean.tolist()
+    assert std.tolist() == task.target_scaling.std.tolist()
+    one = model(np.ones((16, 2)))  # a single sequence without a batch axis
+    assert one.shape == (16, 1) and one.dtype == torch.float64
+    with pytest.raises(ValueError, match="inputs must be"):
+        model(np.ones((16, 3)))
+
+
+def test_loading_something_else_is_a_one_line_input_error(tmp_path: Path) -> None:
+    with pytest.raises(sweeper.InputError, match="no such file"):
+        sweeper.load_model(tmp_path / "absent.pt")
+    (tmp_path / "notes.pt").write_text("not a model")
+    with pytest.raises(sweeper.InputError, match="is not a model saved by sweeper"):
+        sweeper.load_model(tmp_path / "notes.pt")
+    torch.save({"weights": torch.ones(2)}, tmp_path / "other.pt")
+    with pytest.raises(sweeper.InputError, match="is not a model saved by sweeper"):
+        sweeper.load_model(tmp_path / "other.pt")
+
+
+SEQUENCES = """
+[study]
+name = "parcels"
+goal = "maximize"
+objective = "valid_metric"
+trials = 2
+seed = 4
+
+[task]
+kind = "sequences"
+file = "parcels.npz"
+lengths = "lengths"
+test_fraction = 0.2
+
+[training]
+epochs = 5
+threads = 1
+cell = "gru"
+unroll = 10
+lr = 0.02
+
+[search]
+hidden = { one_of = [8, 16] }
+"""
+
+
+def test_a_ragged_classifier_is_saved_and_predicts_at_each_last_step(in_tmp: Path) -> None:
+    # parcel scans of varying length: the class is the sign of the last reading (invented)
+    rng = np.random.default_rng(1)
+    inputs = rng.normal(size=(300, 10, 1))
+    lengths = rng.integers(2, 11, size=300)
+    labels = (inputs[np.arange(300), lengths - 1, 0] > 0).astype(int)
+    np.savez(in_tmp / "parcels.npz", inputs=inputs, labels=labels, lengths=lengths)
+    (in_tmp / "parcels.toml").write_text(SEQUENCES, encoding="utf-8")
+    assert invoke("run", "parcels.toml", "--report", "p.html").exit_code == 0
+    result = invoke("best", "runs/parcels.db", "--retrain", "--save", "p.pt")
+    assert result.exit_code == 0, result.output
+    model = sweeper.load_model("p.pt")
+    assert model.info["per_step"] is False and model.info["output_size"] == 2
+    study, spec = load_existing("runs/parcels.db")
+    refit = refit_best(study, spec)
+    test = refit.task.index["test"]
+    predicted = model.predict(inputs[test], lengths[test])
+    assert predicted.shape == (len(test),)
+    data = refit.task.data("test")
+    with torch.no_grad():
+        logits, _ = refit.run.model(data.inputs, refit.run.model.initial_state(len(test)))
+    expected = logits.argmax(dim=-1)[torch.arange(len(test)), torch.as_tensor(lengths[test]) - 1]
+    assert torch.equal(predicted, expected)
+    assert float((predicted.numpy() == labels[test]).mean()) > 0.9

@@ -1,0 +1,125 @@
+"""`sweeper replay STUDY TRIAL`: retrain a trial from its parameters and seed, compare exactly."""
+
+from __future__ import annotations
+
+import sqlite3
+from pathlib import Path
+
+import optuna
+from optuna.trial import TrialState
+
+from sweeper.seeds import trial_seed
+from sweeper.storage import open_storage
+from tests.conftest import invoke, write_tiny_spec
+
+DEMO = Path(__file__).resolve().parents[1] / "search_spaces" / "adding_lstm_demo.toml"
+
+
+def tiny_study(folder: Path, trials: int = 2) -> Path:
+    spec = write_tiny_spec(folder, trials=trials, epochs=3, extra="")
+    spec.write_text(spec.read_text().replace("batch = 32", "batch = 32\nthreads = 1"))
+    result = invoke("run", spec.name, "--report", "tiny.html")
+    assert result.exit_code == 0, result.output
+    return folder / "runs" / "tiny.db"
+
+
+def study_of(db: Path, name: str) -> optuna.Study:
+    return optuna.load_study(study_name=name, storage=open_storage(str(db)))
+
+
+def test_a_trial_of_the_demo_study_replays_exactly(in_tmp: Path) -> None:
+    db = in_tmp / "demo.db"
+    ran = invoke("run", str(DEMO), "--trials", "2", "--storage", str(db), "--report", "x.html")
+    assert ran.exit_code == 0, ran.output
+    result = invoke("replay", str(db), "1")
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    seed = study_of(db, "adding-lstm-demo").trials[1].user_attrs["seed"]
+    assert lines[0] == (
+        f"replay of trial 1 in 'adding-lstm-demo': seed {seed}, 10 epochs, 1 torch thread"
+    )
+    assert lines[1].split() == ["epoch", "measure", "recorded", "replayed"]
+    assert lines[-1] == "agree: the replay matches the record exactly (10 epochs, 10 values each)"
+    assert len(lines) == 2 + 10 * 4 + 1
+
+
+def test_each_epoch_shows_recorded_and_replayed_values(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp)
+    result = invoke("replay", str(db), "0")
+    assert result.exit_code == 0, result.output
+    with sqlite3.connect(db) as connection:
+        losses = connection.execute(
+            "SELECT epoch, train_loss FROM sweeper_epochs WHERE trial_number = 0 ORDER BY epoch"
+        ).fetchall()
+    for epoch, loss in losses:
+        (row,) = [
+            line
+            for line in result.output.splitlines()
+            if line.split()[:2] == [str(epoch), "train_loss"]
+        ]
+        assert row.split()[2:] == [repr(loss), repr(loss), "same"]
+
+
+def test_a_changed_record_is_reported_and_exits_1(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp)
+    with sqlite3.connect(db) as connection:
+        connection.execute(
+            "UPDATE sweeper_epochs SET grad_norm_max = grad_norm_max * (1 + 1e-12) "
+            "WHERE trial_number = 1 AND epoch = 2"
+        )
+    result = invoke("replay", str(db), "1")
+    assert result.exit_code == 1
+    assert "grad_norm_max" in result.output and "DIFFERS" in result.output
+    assert result.output.splitlines()[-1] == (
+        "differ: 1 of 3 epochs disagree; the first is epoch 2 (grad_norm_max)"
+    )
+
+
+def test_a_continued_trial_replays_with_its_origins_seed(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp, trials=1)
+    study = study_of(db, "tiny")
+    first = study.trials[0]
+    # trial 1: interrupted before its first epoch; the next launch continues it as trial 2
+    study.add_trial(
+        optuna.create_trial(
+            state=TrialState.FAIL,
+            params=first.params,
+            distributions=first.distributions,
+            user_attrs={"interrupted": True},
+        )
+    )
+    again = invoke("run", "tiny.toml", "--trials", "2", "--report", "tiny.html")
+    assert again.exit_code == 0, again.output
+    retry = study_of(db, "tiny").trials[2]
+    assert retry.state == TrialState.COMPLETE and retry.user_attrs["retry_of"] == 1
+    assert retry.user_attrs["seed"] == trial_seed(3, 1) != trial_seed(3, 2)
+    result = invoke("replay", str(db), "2")
+    assert result.exit_code == 0, result.output
+    assert f"seed {trial_seed(3, 1)}," in result.output.splitlines()[0]
+
+
+def test_unknown_or_untrained_trials_exit_2(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp)
+    missing = invoke("replay", str(db), "9")
+    assert missing.exit_code == 2
+    assert "sweeper: error: study 'tiny' has no trial 9 (trials: 0 to 1)" in missing.output
+    study = study_of(db, "tiny")
+    study.add_trial(optuna.create_trial(state=TrialState.FAIL))
+    untrained = invoke("replay", str(db), "2")
+    assert untrained.exit_code == 2 and "never started training" in untrained.output
+    assert invoke("replay", str(in_tmp / "nothing.db"), "0").exit_code == 2
+
+
+def test_objective_plugin_studies_cannot_be_replayed(in_tmp: Path) -> None:
+    (in_tmp / "replay_bowl.py").write_text(
+        "def score(params, report):\n    return (params['x'] - 1) ** 2\n", encoding="utf-8"
+    )
+    spec = in_tmp / "bowl.toml"
+    spec.write_text(
+        '[study]\nname = "bowl"\ntrials = 2\n\n[task]\nkind = "objective"\n'
+        'function = "replay_bowl:score"\n\n[search]\nx = { between = [-2.0, 2.0] }\n',
+        encoding="utf-8",
+    )
+    assert invoke("run", spec.name, "--report", "b.html").exit_code == 0
+    result = invoke("replay", "runs/bowl.db", "0")
+    assert result.exit_code == 2 and "objective plugin" in result.output
