@@ -76,7 +76,9 @@ def plan_replay(study: optuna.Study, spec: Spec, number: int) -> ReplayPlan:
     recorded = tuple(row for row in rows if row["trial_number"] == number)
     if not recorded:
         raise InputError(f"trial {number} of '{study.study_name}' recorded no epoch to compare")
-    return ReplayPlan(spec, stored, recorded, sweep_threads(spec))
+    # the thread count the trial ran with (recorded since it changes the floating-point sums)
+    threads = int(stored.trial.user_attrs.get("threads") or sweep_threads(spec))
+    return ReplayPlan(spec, stored, recorded, threads)
 
 
 def run_replay(

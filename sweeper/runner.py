@@ -12,6 +12,7 @@ from typing import TYPE_CHECKING, Any
 
 import optuna
 import sqlalchemy as sa
+import torch
 
 from sweeper import checkpoints, telemetry
 from sweeper.params import TrialParams
@@ -97,6 +98,7 @@ def _run_training(
     assert ctx.task is not None, "a training trial needs its task"
     training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
     trial.set_user_attr("training", training.as_dict())
+    trial.set_user_attr("threads", torch.get_num_threads())  # replay needs the same count
     build = model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
     run = TrialRun(ctx.task, training, seed, build)
     _continue_from_checkpoint(trial, ctx, run, origin)
