@@ -89,7 +89,7 @@ def snapshot(study: optuna.Study, budget: int, workers: int) -> Snapshot:
     running = tuple(
         RunningTrial(
             t.number,
-            int(t.user_attrs.get("epochs", 0)),
+            max(t.intermediate_values, default=int(t.user_attrs.get("epochs", 0))),
             _age(t, now),
             str(t.user_attrs.get("worker", "")),
         )

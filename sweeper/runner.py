@@ -122,12 +122,18 @@ def _run_training(
             raise optuna.TrialPruned(reason)
         value = objective_value(ctx.spec, record)
         trial.report(value, epoch)
-        if epoch < ctx.spec.training.epochs and trial.should_prune():
+        if _may_stop(ctx.spec, epoch) and trial.should_prune():
             reason = f"stopped early after epoch {epoch}"
             trial.set_user_attr("end_reason", reason)
             raise optuna.TrialPruned(reason)
     trial.set_user_attr("end_reason", "completed")
     return value
+
+
+def _may_stop(spec: Spec, epoch: int) -> bool:
+    """Whether the stopping rule can decide now (asking optuna costs a few milliseconds)."""
+    rule = spec.stopping
+    return rule.rule != "none" and rule.min_epochs <= epoch < spec.training.epochs
 
 
 def _plugin_record(epoch: int, value: float) -> EpochRecord:
