@@ -57,7 +57,7 @@ class TrainingSection:
 
 @dataclass(frozen=True)
 class StoppingSection:
-    rule: str = "none"
+    rule: str = "asha"  # benchmarks/search_efficiency.py measures this default
     min_epochs: int = 1
     reduction: int = 3
     warmup_trials: int = 4

@@ -34,6 +34,9 @@ unroll = {{ between = [3, 12] }}
 hidden = {{ one_of = [4, 8] }}
 clip = {{ between = [0.5, 5.0], scale = "log" }}
 lr = {{ between = [0.001, 0.05], scale = "log" }}
+
+[stopping]
+rule = "none"  # the tests count trials that ran every epoch
 """
 
 

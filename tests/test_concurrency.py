@@ -31,6 +31,9 @@ function = "waves:wave"
 
 [search]
 x = { between = [-2.0, 2.0] }
+
+[stopping]
+rule = "none"  # every trial must complete
 """
 
 

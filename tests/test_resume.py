@@ -34,6 +34,9 @@ threads = 1
 [search]
 unroll = {{ one_of = [10, 20, 40] }}
 lr = {{ between = [0.002, 0.02], scale = "log" }}
+
+[stopping]
+rule = "none"  # every trial must complete
 """
 
 

@@ -1,0 +1,125 @@
+"""Samplers: each name builds what it promises, impossible spaces are refused before a study
+exists, and grid points are run once each even by two workers."""
+
+from __future__ import annotations
+
+import io
+import json
+import time
+from pathlib import Path
+
+import optuna
+import pytest
+from optuna.trial import TrialState
+
+from sweeper.errors import SpecError
+from sweeper.launcher import run_sweep
+from sweeper.progress import ProgressDisplay
+from sweeper.spec import parse_spec
+from sweeper.study import load_existing, make_sampler
+
+REPO = Path(__file__).resolve().parents[1]
+TRAINING = """
+[study]
+name = "s"
+sampler = "{sampler}"
+[task]
+kind = "adding"
+length = 12
+train_sequences = 32
+valid_sequences = 16
+[search]
+{search}
+"""
+RANGES = 'unroll = { between = [2, 12] }\nlr = { between = [0.001, 0.1], scale = "log" }'
+
+
+def _spec(sampler: str, search: str = RANGES) -> object:
+    return parse_spec(TRAINING.format(sampler=sampler, search=search), "s.toml")
+
+
+def test_each_sampler_name_builds_its_sampler() -> None:
+    tpe = make_sampler(_spec("tpe"), 0, 0)
+    assert isinstance(tpe, optuna.samplers.TPESampler)
+    assert tpe._multivariate is True and tpe._constant_liar is True
+    sobol = make_sampler(_spec("sobol"), 0, 0)
+    assert isinstance(sobol, optuna.samplers.QMCSampler) and sobol._qmc_type == "sobol"
+    assert isinstance(make_sampler(_spec("cmaes"), 0, 0), optuna.samplers.CmaEsSampler)
+    assert isinstance(make_sampler(_spec("random"), 0, 0), optuna.samplers.RandomSampler)
+    # grid points arrive fully fixed through the queue; the sampler draws nothing
+    grid = _spec("grid", "unroll = { one_of = [2, 4] }")
+    assert isinstance(make_sampler(grid, 0, 0), optuna.samplers.RandomSampler)
+
+
+@pytest.mark.parametrize(
+    ("search", "message"),
+    [
+        (
+            RANGES + "\nhidden = { one_of = [8, 16] }",
+            "s.toml: search.hidden: the cmaes sampler searches ranges only; write this as "
+            '{ between = [low, high] }, fix it to one value, or use sampler = "tpe"',
+        ),
+        (
+            "unroll = 4\nlr = 0.01",
+            "s.toml: search: the cmaes sampler needs at least one range to search; add one, "
+            'or use sampler = "tpe"',
+        ),
+    ],
+)
+def test_cmaes_refuses_choices_and_spaces_without_ranges(search: str, message: str) -> None:
+    with pytest.raises(SpecError) as caught:
+        _spec("cmaes", search)
+    assert str(caught.value) == message
+
+
+def test_cmaes_takes_integer_and_real_ranges() -> None:
+    assert _spec("cmaes").study.sampler == "cmaes"
+
+
+def bowl(params: dict, report) -> float:
+    return (params["x"] - 0.3) ** 2 + (params["y"] + 0.2) ** 2
+
+
+def slow_grid_point(params: dict, report) -> float:
+    time.sleep(0.3)  # long enough that both workers hold trials at once
+    return float(params["x"] * 10 + params["y"])
+
+
+def _objective_spec(folder: Path, function: str, sampler: str, search: str, **study: object):
+    extra = "".join(f"{key} = {value}\n" for key, value in study.items())
+    text = (
+        f'[study]\nname = "{function}"\nsampler = "{sampler}"\n{extra}'
+        f'storage = "{(folder / "study.db").as_posix()}"\n'
+        f'[task]\nkind = "objective"\nfunction = "tests.test_samplers:{function}"\n'
+        f'path = "{REPO.as_posix()}"\n[search]\n{search}\n'
+    )
+    return parse_spec(text, f"<{function}>")
+
+
+def test_a_cmaes_sweep_draws_its_trials_from_cma_es(tmp_path: Path) -> None:
+    search = "x = { between = [-1.0, 1.0] }\ny = { between = [-1.0, 1.0] }"
+    spec = _objective_spec(tmp_path, "bowl", "cmaes", search, trials=12, seed=4)
+    run_sweep(spec, ProgressDisplay(io.StringIO()))
+    study, _ = load_existing(spec.storage_location)
+    assert len(study.trials) == 12
+    # optuna's CMA-ES marks each trial it proposes with its generation; the first is random
+    marked = [any(k.endswith("generation") for k in t.system_attrs) for t in study.trials]
+    assert marked == [False] + [True] * 11
+
+
+def test_two_workers_run_every_grid_point_once_and_stop_when_it_is_done(tmp_path: Path) -> None:
+    search = "x = { between = [0, 5] }\ny = { one_of = [1, 2] }"
+    spec = _objective_spec(tmp_path, "slow_grid_point", "grid", search, trials=50, workers=2)
+    run_sweep(spec, ProgressDisplay(io.StringIO()))
+    study, _ = load_existing(spec.storage_location)
+    trials = study.trials
+    assert len(trials) == 12 and all(t.state == TrialState.COMPLETE for t in trials)
+    points = sorted(json.dumps(t.params, sort_keys=True) for t in trials)
+    expected = sorted(
+        json.dumps({"x": x, "y": y}, sort_keys=True) for x in range(6) for y in (1, 2)
+    )
+    assert points == expected
+    assert len({t.user_attrs["worker"] for t in trials}) == 2
+    # the grid is exhausted: a later launch, even with a larger budget, queues nothing
+    again = run_sweep(spec.with_overrides(trials=80), ProgressDisplay(io.StringIO()))
+    assert (again.queued, again.ran) == (0, 0)
