@@ -75,8 +75,7 @@ def drop(engine: sa.Engine, study_name: str, trial_numbers: list[int]) -> None:
     if not trial_numbers:
         return
     query = sa.delete(CHECKPOINTS).where(
-        (CHECKPOINTS.c.study_name == study_name)
-        & CHECKPOINTS.c.trial_number.in_(trial_numbers)
+        (CHECKPOINTS.c.study_name == study_name) & CHECKPOINTS.c.trial_number.in_(trial_numbers)
     )
 
     def write() -> None:

@@ -124,7 +124,8 @@ def _open(
                 heartbeat_stale_trial_callback=stale_callback,
             )
     except (sa.exc.SQLAlchemyError, ImportError, ValueError) as error:
-        raise StorageFailure(f"cannot open storage {redact(url)}: {describe_error(error)}") from None
+        message = f"cannot open storage {redact(url)}: {describe_error(error)}"
+        raise StorageFailure(message) from None
     if is_sqlite(url):
         sa.event.listen(storage.engine, "connect", _set_sqlite_pragmas)
         sa.event.listen(storage.engine, "begin", _begin_immediate)

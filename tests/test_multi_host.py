@@ -86,7 +86,8 @@ def _connections(engine: sa.Engine) -> Counter[str]:
         names = (
             connection.execute(
                 sa.text(
-                    "SELECT application_name FROM pg_stat_activity WHERE application_name LIKE 'sweeper %'"
+                    "SELECT application_name FROM pg_stat_activity "
+                    "WHERE application_name LIKE 'sweeper %'"
                 )
             )
             .scalars()

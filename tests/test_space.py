@@ -75,5 +75,6 @@ def test_a_range_must_be_a_whole_number_of_steps() -> None:
 
     from sweeper.errors import SpecError
 
-    with pytest.raises(SpecError, match="search.n.step: 0..10 is not a whole number of steps of 3"):
+    expected = r"search\.n\.step: 0\.\.10 is not a whole number of steps of 3"
+    with pytest.raises(SpecError, match=expected):
         parse_entry("t", "search.n", {"between": [0, 10], "step": 3})
