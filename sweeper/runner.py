@@ -133,7 +133,8 @@ def _run_training(
 def _may_stop(spec: Spec, epoch: int) -> bool:
     """Whether the stopping rule can decide now (asking optuna costs a few milliseconds)."""
     rule = spec.stopping
-    return rule.rule != "none" and rule.min_epochs <= epoch < spec.training.epochs
+    stops = rule.rule != "none" or rule.patience > 0  # patience alone can stop a trial
+    return stops and rule.min_epochs <= epoch < spec.training.epochs
 
 
 def _plugin_record(epoch: int, value: float) -> EpochRecord:

@@ -109,4 +109,6 @@ def test_tpe_beats_random_search_on_hartmann6(tmp_path: Path) -> None:
     tpe = _best_values("hartmann6", HARTMANN6_SPACE, "tpe", tmp_path)
     random = _best_values("hartmann6", HARTMANN6_SPACE, "random", tmp_path)
     assert min(tpe) >= HARTMANN6_MINIMUM - 1e-6  # no study can beat the true minimum
+    # six dimensions in 100 trials: our bar is the median within 0.2 of the minimum
+    assert statistics.median(tpe) - HARTMANN6_MINIMUM <= 0.2, tpe
     assert statistics.median(tpe) < statistics.median(random), (tpe, random)
