@@ -46,11 +46,15 @@ class TrialContext:
     should_stop: Callable[[], bool] = field(default=lambda: False)
 
 
-def origin_number(trial: optuna.Trial) -> int:
-    """The trial this one retries (its seed and checkpoint), or its own number."""
-    system = trial.storage.get_trial_system_attrs(trial._trial_id)
-    original = system.get("failed_trial")
+def origin_of(trial: optuna.trial.FrozenTrial) -> int:
+    """The trial this one retries or continues (its seed and checkpoint), or its own number."""
+    original = trial.system_attrs.get("failed_trial")
     return int(original) if original is not None else trial.number
+
+
+def origin_number(trial: optuna.Trial) -> int:
+    """``origin_of`` for a live trial."""
+    return origin_of(trial.storage.get_trial(trial._trial_id))
 
 
 def objective_value(spec: Spec, record: EpochRecord) -> float:

@@ -21,6 +21,7 @@ from sweeper.runner import (
     TrialContext,
     failure_attrs,
     origin_number,
+    origin_of,
     run_trial,
     worker_name,
 )
@@ -245,11 +246,6 @@ def _finish_attrs(trial: optuna.Trial, started: float) -> None:
     trial.set_user_attr("wall_seconds", wall)
     if "compute_seconds" not in trial.user_attrs:
         trial.set_user_attr("compute_seconds", wall)
-
-
-def origin_of(trial: optuna.trial.FrozenTrial) -> int:
-    original = trial.system_attrs.get("failed_trial")
-    return int(original) if original is not None else trial.number
 
 
 def _drop_checkpoint(study: optuna.Study, trial: optuna.Trial, context: TrialContext) -> None:

@@ -44,7 +44,7 @@ class AddingTask(CachedTask):
 
     def _build(self, split: Split) -> SequenceSet:
         opts = self.options
-        count = opts.train_sequences if split == "train" else opts.valid_sequences
+        count = opts.sequences_in(split)
         return make_adding(count, opts.length, generator(opts.split_seed(self.name, split)))
 
     def baseline(self) -> Baseline:

@@ -50,7 +50,7 @@ class CopyTask(CachedTask):
 
     def _build(self, split: Split) -> SequenceSet:
         opts = self.options
-        count = opts.train_sequences if split == "train" else opts.valid_sequences
+        count = opts.sequences_in(split)
         return make_copy(count, opts.delay, generator(opts.split_seed(self.name, split)))
 
     def baseline(self) -> Baseline:

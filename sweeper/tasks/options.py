@@ -119,6 +119,9 @@ class GeneratedOptions:
         check_at_least("train_sequences", self.train_sequences, 1)
         check_at_least("valid_sequences", self.valid_sequences, 1)
 
+    def sequences_in(self, split: str) -> int:
+        return self.train_sequences if split == "train" else self.valid_sequences
+
     def split_seed(self, task: str, split: str) -> int:
         """Train and validation data come from different seeds derived from the task seed."""
         return derive_seed("task-data", task, self.seed, split)

@@ -108,7 +108,7 @@ class ReberTask(CachedTask):
 
     def _build(self, split: Split) -> SequenceSet:
         opts = self.options
-        count = opts.train_sequences if split == "train" else opts.valid_sequences
+        count = opts.sequences_in(split)
         rng = random.Random(opts.split_seed(self.name, split))
         strings = [draw(rng, opts.length + 1) for _ in range(count)]
         return encode(strings, opts.length)

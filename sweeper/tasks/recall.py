@@ -54,7 +54,7 @@ class RecallTask(CachedTask):
 
     def _build(self, split: Split) -> SequenceSet:
         opts = self.options
-        count = opts.train_sequences if split == "train" else opts.valid_sequences
+        count = opts.sequences_in(split)
         gen = generator(opts.split_seed(self.name, split))
         return make_recall(count, opts.length, opts.delay, opts.symbols, gen)
 
