@@ -1,7 +1,11 @@
 """sweeper: hyperparameter sweeps for recurrent networks.
 
-The public API; everything else is internal and may change.
+The public API; everything else is internal and may change. Names other than the exceptions
+load on first use, so that the command line and fresh worker processes import torch only
+when they need it (the launcher starts its pool before that; see ``sweeper.pool``).
 """
+
+import typing as _typing
 
 from sweeper.errors import (
     InputError,
@@ -13,17 +17,33 @@ from sweeper.errors import (
     SweeperError,
     TooManyFailures,
 )
-from sweeper.launcher import SweepResult, run_sweep
-from sweeper.params import TrialParams
-from sweeper.saved_model import load_model
-from sweeper.spec import Spec, load_spec, parse_spec
-from sweeper.tasks.base import Baseline, SequenceSet, Task
-from sweeper.telemetry import EpochRecord
+
+if _typing.TYPE_CHECKING:
+    from sweeper.launcher import SweepResult, run_sweep
+    from sweeper.params import TrialParams
+    from sweeper.report import build_report, export_study
+    from sweeper.saved_model import load_model
+    from sweeper.spec import Spec, load_spec, parse_spec
+    from sweeper.tasks.base import Baseline, SequenceSet, Task
+    from sweeper.telemetry import EpochRecord
 
 __version__ = "0.1.0"
 
-# The summary pulls in heavy analysis libraries; workers never need it, so it loads on use.
-_LAZY = {"build_report": "sweeper.report", "export_study": "sweeper.report"}
+_LAZY = {
+    "Baseline": "sweeper.tasks.base",
+    "EpochRecord": "sweeper.telemetry",
+    "SequenceSet": "sweeper.tasks.base",
+    "Spec": "sweeper.spec",
+    "SweepResult": "sweeper.launcher",
+    "Task": "sweeper.tasks.base",
+    "TrialParams": "sweeper.params",
+    "build_report": "sweeper.report",
+    "export_study": "sweeper.report",
+    "load_model": "sweeper.saved_model",
+    "load_spec": "sweeper.spec",
+    "parse_spec": "sweeper.spec",
+    "run_sweep": "sweeper.launcher",
+}
 
 
 def __getattr__(name: str) -> object:

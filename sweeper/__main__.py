@@ -1,5 +1,5 @@
 """`python -m sweeper`."""
 
-from sweeper.cli import main
+from sweeper.cli import entry
 
-main(prog_name="sweeper")
+entry()

@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import os
 import socket
+import time
 
 import optuna
 from optuna.storages import RetryHeartbeatStaleTrialCallback, fail_stale_trials
@@ -16,6 +17,17 @@ from sweeper.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.spec import Spec
 from sweeper.storage import backend_of, engine_of, redact, set_heartbeat
 from sweeper.study import budget_of, request_stop, top_up
+
+STEP_SECONDS = 2.0  # a trial budget is queued at once; heartbeats are noticed in seconds
+QUICK_STEP_SECONDS = 0.5
+
+
+def _queue_short(snap: Snapshot, workers: int) -> bool:
+    """More trials are needed than are queued for the workers (a compute budget queues one
+    trial per worker at a time): a worker may be waiting for the next step."""
+    counts = snap.counts
+    unqueued = snap.budget - counts.finished - counts.running - counts.waiting
+    return counts.waiting < workers and unqueued > 0
 
 
 def stored_budget(study: optuna.Study, spec: Spec) -> Spec:
@@ -44,6 +56,7 @@ class Coordinator:
             max_retry=spec.study.max_retries
         )
         lease.ensure_table(engine_of(study))
+        self._due = 0.0  # when `step_when_due` steps next (time.monotonic)
 
     def step(self) -> Snapshot:
         self.spec = stored_budget(self.study, self.spec)
@@ -56,7 +69,18 @@ class Coordinator:
             self.queued += top_up(self.study, self.spec)
         snap = snapshot(self.study, budget_of(self.spec), self.spec.study.workers)
         self.display.update(snap)
+        pause = QUICK_STEP_SECONDS if _queue_short(snap, self.spec.study.workers) else STEP_SECONDS
+        self._due = time.monotonic() + pause
         return snap
+
+    def step_when_due(self) -> None:
+        """``step``, at most every ``STEP_SECONDS`` while the queue holds enough trials.
+
+        Each step reads every trial and renews the lease: on a machine whose cores all train,
+        stepping twice a second took about 4% of a core from the workers.
+        """
+        if time.monotonic() >= self._due:
+            self.step()
 
     def close(self) -> None:
         lease.release(engine_of(self.study), self.study.study_name, self.holder)

@@ -12,6 +12,7 @@ import optuna
 from sweeper.checks import build_spec_task
 from sweeper.coordinator import Coordinator
 from sweeper.errors import Interrupted, RunFailure, TooManyFailures
+from sweeper.pool import LocalPool
 from sweeper.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.seeds import derive_seed
 from sweeper.spec import Spec
@@ -81,22 +82,34 @@ class Placement:
     threads: int
     cluster: str | None = None  # a Dask scheduler address
     joined: bool = False  # a `sweeper worker` that joined a study launched elsewhere
+    pool: LocalPool | None = None  # the local processes of two or more workers
 
 
 def run_sweep(
-    spec: Spec, display: ProgressDisplay | None = None, cluster: str | None = None
+    spec: Spec,
+    display: ProgressDisplay | None = None,
+    cluster: str | None = None,
+    pool: LocalPool | None = None,
 ) -> SweepResult:
     """Run the spec's study to its budget with ``spec.study.workers`` workers.
 
     The first SIGINT or SIGTERM asks every worker to stop at its next window boundary and
     raises Interrupted once they have; a second one raises KeyboardInterrupt at once.
+    ``pool``: local worker processes started earlier (``sweeper.pool.local_pool``); made
+    here when the spec asks for two or more workers and none is given. Closed before returning.
     """
-    study = open_for_launch(spec)
-    threads = spec.training.threads or default_threads(spec.study.workers)
-    if cluster:  # the cluster's workers bring their own cores
-        threads = spec.training.threads or 1
-    placement = Placement(spec.study.workers, threads, cluster)
-    return _drive(study, spec, placement, display or ProgressDisplay())
+    if pool is None and not cluster and spec.study.workers > 1:
+        pool = LocalPool(spec.study.workers).start()
+    try:
+        study = open_for_launch(spec)
+        threads = spec.training.threads or default_threads(spec.study.workers)
+        if cluster:  # the cluster's workers bring their own cores
+            threads = spec.training.threads or 1
+        placement = Placement(spec.study.workers, threads, cluster, pool=pool)
+        return _drive(study, spec, placement, display or ProgressDisplay())
+    finally:
+        if pool is not None:
+            pool.close()
 
 
 def queue_only(spec: Spec) -> SweepResult:
@@ -186,10 +199,8 @@ def _start_workers(
             finished.set,
             errors,
         )
-    if placement.workers > 1:
-        return run_parallel(
-            location, name, placement.workers, placement.threads, finished.set, errors
-        )
+    if placement.pool is not None:
+        return run_parallel(location, name, placement.pool, placement.threads, finished.set, errors)
     index = derive_seed(socket.gethostname(), os.getpid()) % 10_000 if placement.joined else 0
 
     # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.
@@ -213,7 +224,7 @@ def _watch(
                 stop.set()  # relayed to the in-process worker (set here or by another host)
             if stop.is_set():
                 _stop_workers(coordinator, finished, placement.joined)
-            coordinator.step()
+            coordinator.step_when_due()
     except TooManyFailures:
         finished.wait(60)
         raise

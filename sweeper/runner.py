@@ -91,6 +91,11 @@ def _continue_from_checkpoint(
         telemetry.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
         trial.report(objective_value(ctx.spec, record), record.epoch)
     trial.set_user_attr("resumed_from_epoch", run.epoch)
+    # A retry inherits its original's attributes, which lag when the worker died between
+    # saving a checkpoint and recording its epoch; with no epoch left to run, nothing else
+    # would correct them.
+    trial.set_user_attr("epochs", run.epoch)
+    trial.set_user_attr("compute_seconds", sum(record.seconds for record in run.records))
 
 
 def _run_training(

@@ -6,18 +6,14 @@ import itertools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
-
-import optuna
-from optuna.distributions import (
-    BaseDistribution,
-    CategoricalDistribution,
-    FloatDistribution,
-    IntDistribution,
-)
+from typing import TYPE_CHECKING, Any
 
 from sweeper.errors import SpecError
 from sweeper.suggest import closest
+
+if TYPE_CHECKING:  # optuna loads on first use: reading a spec should not wait for it
+    import optuna
+    from optuna.distributions import BaseDistribution
 
 Scalar = bool | int | float | str
 RANGE_KEYS = ("between", "scale", "step")
@@ -50,6 +46,8 @@ class Range:
         }
 
     def distribution(self) -> BaseDistribution:
+        from optuna.distributions import FloatDistribution, IntDistribution
+
         if self.integer:
             step = int(self.step) if self.step else 1
             return IntDistribution(int(self.low), int(self.high), log=self.log, step=step)
@@ -74,6 +72,8 @@ class Choices:
         return {"one_of": list(self.values)}
 
     def distribution(self) -> BaseDistribution:
+        from optuna.distributions import CategoricalDistribution
+
         return CategoricalDistribution(self.values)
 
 

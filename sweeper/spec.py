@@ -123,8 +123,12 @@ def _positive(source: str, key: str, value: int) -> int:
     return value
 
 
-def load_spec(path: str | Path) -> Spec:
-    """Read and check a spec file; raise SpecError naming the file, the key and the fix."""
+def load_spec(path: str | Path, check_task: bool = True) -> Spec:
+    """Read and check a spec file; raise SpecError naming the file, the key and the fix.
+
+    ``check_task=False`` checks each section but not the spec against its task, which
+    builds the task's data (and imports torch): a quick first look at a spec.
+    """
     path = Path(path)
     source = str(path)
     try:
@@ -133,10 +137,10 @@ def load_spec(path: str | Path) -> Spec:
         raise SpecError(source, "", "no such spec file; check the path") from None
     except (OSError, UnicodeDecodeError) as error:
         raise SpecError(source, "", f"cannot read the spec file ({error})") from None
-    return parse_spec(text, source)
+    return parse_spec(text, source, check_task)
 
 
-def parse_spec(text: str, source: str = "<spec>") -> Spec:
+def parse_spec(text: str, source: str = "<spec>", check_task: bool = True) -> Spec:
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as error:
@@ -154,7 +158,8 @@ def parse_spec(text: str, source: str = "<spec>") -> Spec:
     search = parse_search(source, data.get("search", {}))
     stopping = _parse_stopping(source, data.get("stopping", {}))
     spec = Spec(source, text, study, task, training, search, stopping)
-    _check_combinations(spec)
+    if check_task:
+        _check_combinations(spec)
     return spec
 
 

@@ -9,7 +9,6 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
 
 import optuna
 from optuna.storages._heartbeat import get_heartbeat_thread
@@ -17,6 +16,7 @@ from optuna.trial import TrialState
 
 from sweeper import checkpoints
 from sweeper.checks import build_spec_task
+from sweeper.pool import LocalPool, load_trial_machinery
 from sweeper.runner import (
     TrialContext,
     failure_attrs,
@@ -79,6 +79,7 @@ def work(
     # before any tensor work: thread pools are sized on first use
     previous = torch.get_num_threads()
     torch.set_num_threads(threads)
+    load_trial_machinery()  # done already, and at once, in a warm pool's process
     stop_event = stop_event or threading.Event()
     restore = install_stop_signals(stop_event) if own_signals else None
     try:
@@ -271,20 +272,20 @@ def _drop_checkpoint(study: optuna.Study, trial: optuna.Trial, context: TrialCon
 def run_parallel(
     location: str,
     study_name: str,
-    workers: int,
+    pool: LocalPool,
     threads: int,
     on_done: Callable[[], None],
     errors: list[BaseException],
 ) -> threading.Thread:
-    """Start ``workers`` processes through joblib's process backend, from a helper thread."""
-    import joblib
+    """Run one worker on each of the pool's processes, from a helper thread."""
 
-    return in_background(
-        lambda: _parallel_until_done(joblib, location, study_name, workers, threads),
-        "sweeper-workers",
-        on_done,
-        errors,
-    )
+    def until_done() -> None:
+        try:
+            _parallel_until_done(pool, location, study_name, threads)
+        finally:
+            pool.close()  # the summary can be written while they go away
+
+    return in_background(until_done, "sweeper-workers", on_done, errors)
 
 
 def in_background(
@@ -308,21 +309,20 @@ def in_background(
     return thread
 
 
-def _parallel_until_done(
-    joblib: Any, location: str, study_name: str, workers: int, threads: int
-) -> None:
+def _parallel_until_done(pool: LocalPool, location: str, study_name: str, threads: int) -> None:
     """Run the workers; when one dies (killed, out of memory), start the pool again.
 
     joblib's process pool stops every worker when one of them dies; their trials then look
     stale and come back, from their checkpoints, through the heartbeat retry.
     """
+    import joblib
     from joblib.externals.loky.process_executor import TerminatedWorkerError
 
     for restart in range(MAX_POOL_RESTARTS + 1):
         try:
-            joblib.Parallel(n_jobs=workers, backend="loky")(
+            pool.run(
                 joblib.delayed(work)(location, study_name, index, threads, None, True)
-                for index in range(workers)
+                for index in range(pool.size)
             )
             return
         except TerminatedWorkerError:

@@ -193,3 +193,45 @@ def test_second_ctrl_c_stops_at_once_and_resume_recovers(tmp_path: Path) -> None
     _finished_once(trials)
     status = proc.run(tmp_path, "status", "runs/r.db")
     assert "retries" in status.stdout  # which trial retried which
+
+
+class _WorkerDied(BaseException):
+    """Stands in for SIGKILL: not an Exception, so no handler records the trial's end."""
+
+
+def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from optuna.storages import RetryHeartbeatStaleTrialCallback
+
+    from sweeper import checkpoints, runner
+    from sweeper.launcher import open_for_launch
+    from sweeper.spec import load_spec
+    from sweeper.study import top_up
+    from sweeper.workers import work
+
+    spec = load_spec(_spec(in_tmp, trials=1, epochs=2, sequences=64))
+    study = open_for_launch(spec)
+    top_up(study, spec)
+    saved = checkpoints.save
+
+    def save_then_die(engine: object, name: str, origin: int, epoch: int, state: dict) -> None:
+        saved(engine, name, origin, epoch, state)  # type: ignore[arg-type]
+        if epoch == 2:  # the last epoch's state is stored, its "epochs" attribute is not
+            raise _WorkerDied
+
+    monkeypatch.setattr(runner.checkpoints, "save", save_then_die)
+    with pytest.raises(_WorkerDied):
+        work(spec.storage_location, "r", 0, threads=1)
+    monkeypatch.setattr(runner.checkpoints, "save", saved)
+    (dead,) = study.get_trials()
+    assert dead.state == TrialState.RUNNING and dead.user_attrs["epochs"] == 1
+    # what the coordinator does with a trial whose heartbeat stopped
+    study._storage.set_trial_state_values(dead._trial_id, TrialState.FAIL)
+    RetryHeartbeatStaleTrialCallback(max_retry=3)(study, study.get_trials()[0])
+
+    work(spec.storage_location, "r", 0, threads=1)
+    retry = study.get_trials()[1]
+    assert retry.state == TrialState.COMPLETE and retry.user_attrs["resumed_from_epoch"] == 2
+    assert retry.user_attrs["epochs"] == 2
+    assert retry.user_attrs["compute_seconds"] > 0

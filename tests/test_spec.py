@@ -108,3 +108,15 @@ def test_grid_needs_steps() -> None:
     from sweeper.study import budget_of
 
     assert budget_of(spec) == 4  # the trial budget is below the 19 * 2 * 3 grid points
+
+
+def test_a_first_look_checks_sections_but_not_the_task(tmp_path: Path) -> None:
+    # `sweeper run` reads the sections first (to start its pool), then checks the task
+    path = tmp_path / "bad.toml"
+    path.write_text(GOOD.replace("[2, 20]", "[2, 40]", 1))
+    assert load_spec(path, check_task=False).search["unroll"].describe()
+    with pytest.raises(SpecError, match="unroll 40 is longer than the task"):
+        load_spec(path)
+    path.write_text(GOOD.replace("trials = 4", 'trials = "four"'))
+    with pytest.raises(SpecError, match=r"study\.trials: must be an integer"):
+        load_spec(path, check_task=False)

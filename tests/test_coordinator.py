@@ -1,0 +1,52 @@
+"""The launcher's coordinator steps often only while a worker may be waiting for a trial."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from sweeper import coordinator as coordinating
+from sweeper.coordinator import Coordinator, _queue_short
+from sweeper.launcher import open_for_launch
+from sweeper.progress import ProgressDisplay, Snapshot
+from sweeper.spec import load_spec
+from sweeper.study import Tally
+from tests.conftest import write_tiny_spec
+
+
+def _snapshot(budget: int, finished: int, running: int, waiting: int) -> Snapshot:
+    counts = Tally(complete=finished, pruned=0, failed=0, running=running, waiting=waiting)
+    return Snapshot("s", budget, counts, None, None, (), None, ())
+
+
+@pytest.mark.parametrize(
+    ("budget", "finished", "running", "waiting", "short"),
+    [
+        (16, 0, 0, 16, False),  # a trial budget is queued whole
+        (16, 6, 2, 8, False),
+        (16, 14, 2, 0, False),  # the last trials run; nothing left to queue
+        (16, 16, 0, 0, False),
+        (16, 3, 2, 0, True),  # a compute budget queues one trial per worker at a time
+        (16, 3, 1, 1, True),
+    ],
+)
+def test_short_queue(budget: int, finished: int, running: int, waiting: int, short: bool) -> None:
+    assert _queue_short(_snapshot(budget, finished, running, waiting), workers=2) == short
+
+
+def test_no_step_before_it_is_due(in_tmp: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    spec = load_spec(write_tiny_spec(in_tmp, trials=3, epochs=1))
+    coordinator = Coordinator(open_for_launch(spec), spec, ProgressDisplay(interval=0))
+    try:
+        assert coordinator.step().counts.waiting == 3
+        steps: list[int] = []
+        monkeypatch.setattr(coordinator, "step", lambda: steps.append(1))
+        coordinator.step_when_due()
+        assert steps == []
+        later = coordinating.time.monotonic() + coordinating.STEP_SECONDS
+        monkeypatch.setattr(coordinating.time, "monotonic", lambda: later)
+        coordinator.step_when_due()
+        assert steps == [1]
+    finally:
+        coordinator.close()
