@@ -150,17 +150,6 @@ def timeline(db: Path, launched: dt.datetime) -> dict[str, float]:
     }
 
 
-def loky_thread_env(workers: int) -> str:
-    """The thread-pool variables a loky worker process sees (joblib sets them)."""
-    import joblib
-
-    names = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS")
-    found = joblib.Parallel(n_jobs=workers, backend="loky")(
-        joblib.delayed(lambda: [os.environ.get(n) for n in names])() for _ in range(workers)
-    )
-    return ", ".join(f"{n}={v}" for n, v in zip(names, found[0], strict=True))
-
-
 def run_rounds(spec: Path, rounds: int) -> dict[int, dict[str, float]]:
     """Each round runs every worker count once, then the machine's ceiling for it."""
     runs: dict[int, list[dict[str, float]]] = {n: [] for n in worker_counts()}
@@ -191,7 +180,6 @@ def main(argv: list[str] | None = None) -> int:
     print(machine_line())
     threads = args.threads or "cores / workers"
     print(f"{2 * len(rates)} trials, {train} sequences x {epochs} epochs, threads: {threads}")
-    print(f"loky workers see: {loky_thread_env(2)}")
     print(f"threads_epoch_ratio {slower:.3f} (one worker's epoch on {many} threads / on 1)")
     report(figures)
     return 0

@@ -1,23 +1,25 @@
-"""The local process pool (joblib's process backend), started before the launcher needs it.
+"""The local process pool: joblib's process backend, its processes forked from a loaded server.
 
-A fresh worker process spends seconds importing torch and the parts torch loads lazily on its
-first optimizer. Started as soon as the spec's sections are read, the pool does that while
-the launcher checks the spec against its task, imports its own modules and creates the
-study, so the workers' first trials start about when an in-process worker's would. This
-module stays light (no torch, no joblib at import time) so that the command line can start
-the pool before anything heavy loads.
+A fresh Python process spends seconds importing torch, and torch loads more (torch._dynamo)
+on its first optimizer. The pool's workers therefore do not start from nothing: a fork server
+starts as soon as the spec's sections are read, loads all of that once while the launcher
+checks the spec and creates the study, and every worker process is forked from it with
+everything loaded. Two workers start about as soon as one in-process worker does.
+
+This module stays light (no torch, no joblib at import time) so that the command line can
+start the server before anything heavy loads.
 """
 
 from __future__ import annotations
 
 import contextlib
 import gc
+import multiprocessing
 import os
-import threading
 from collections.abc import Iterable, Iterator
 from typing import Any
 
-WARM_UP_WAIT_SECONDS = 60.0
+PRELOAD_MODULE = "sweeper.worker_preload"
 
 
 def load_trial_machinery() -> int:
@@ -50,7 +52,7 @@ def collector_paused() -> Iterator[None]:
 
 @contextlib.contextmanager
 def local_pool(workers: int) -> Iterator[LocalPool | None]:
-    """The processes of ``workers`` local workers, starting now (none for a single worker)."""
+    """The pool of ``workers`` local workers, starting now (none for a single worker)."""
     pool = LocalPool(workers).start() if workers > 1 else None
     try:
         yield pool
@@ -60,12 +62,10 @@ def local_pool(workers: int) -> Iterator[LocalPool | None]:
 
 
 class LocalPool:
-    """``size`` worker processes of joblib's process backend, warmed up in the background."""
+    """``size`` worker processes of joblib's process backend, forked from a loaded server."""
 
     def __init__(self, size: int) -> None:
         self.size = size
-        self._warm_up = threading.Thread(target=self._start, name="sweeper-pool-start", daemon=True)
-        self._lock = threading.Lock()
         self._closed = False
         self._busy = False  # workers are running trials: never kill them then
 
@@ -73,51 +73,53 @@ class LocalPool:
         return f"LocalPool(size={self.size})"
 
     def start(self) -> LocalPool:
-        self._warm_up.start()
+        """Start the fork server (if this process has none yet); it loads in the background."""
+        context = multiprocessing.get_context("forkserver")
+        context.set_forkserver_preload([PRELOAD_MODULE])
+        from multiprocessing import forkserver
+
+        forkserver.ensure_running()  # spawns the server and returns; it loads meanwhile
         return self
 
     def run(self, calls: Iterable[Any]) -> list[Any]:
         """Run joblib's delayed ``calls`` on the pool's processes; their results in order."""
         import joblib
 
-        if self._warm_up.is_alive():
-            self._warm_up.join(WARM_UP_WAIT_SECONDS)
+        with _loky_start_method("forkserver"):  # the executor keeps the method it was made with
+            parallel = joblib.Parallel(n_jobs=self.size, backend="loky").__enter__()
         self._busy = True
         try:
-            return list(joblib.Parallel(n_jobs=self.size, backend="loky")(calls))
+            return list(parallel(calls))
         finally:
             self._busy = False
+            parallel.__exit__(None, None, None)
 
     def close(self) -> None:
         """Stop idle worker processes now rather than at the interpreter's exit.
 
         Stopping them politely would wait for each one to tear down its torch (about a second)
         while the launcher could be writing the summary. Workers still busy (a stop request in
-        progress) are left to finish; the interpreter's exit waits for them.
+        progress) are left to finish; the interpreter's exit waits for them. The fork server
+        stays for the next pool and exits with this process.
         """
-        with self._lock:  # after this, the warm-up has made its processes or never will
-            if self._closed:
-                return
-            self._closed = True
+        if self._closed:
+            return
+        self._closed = True
         executor = _current_executor()
         if executor is not None:
             executor.shutdown(wait=False, kill_workers=not self._busy)
 
-    def _start(self) -> None:
-        import joblib
 
-        with self._lock:
-            if self._closed:
-                return
-            # entering makes the executor and its processes; joblib keeps it for the next
-            # call of the same size, which is `run`'s
-            parallel = joblib.Parallel(n_jobs=self.size, backend="loky").__enter__()
-        try:
-            parallel(joblib.delayed(load_trial_machinery)() for _ in range(self.size))
-        except Exception:  # a failed warm-up only costs time; `run` reports real failures
-            pass
-        finally:
-            parallel.__exit__(None, None, None)
+@contextlib.contextmanager
+def _loky_start_method(method: str) -> Iterator[None]:
+    from joblib.externals.loky.backend import context
+
+    previous = context.get_start_method()
+    context.set_start_method(method, force=True)
+    try:
+        yield
+    finally:
+        context.set_start_method(previous, force=True)
 
 
 def _current_executor() -> Any:

@@ -28,7 +28,8 @@ EXPECTED = {
         "trials_phase_ratio",
         "bookkeeping_share_of_training",
     ],
-    "scaling.py": ["machine ceiling", "loky workers see", "speedup_2_workers", "machine_ceiling_2"],
+    "scaling.py": ["machine ceiling", "speedup_2_workers", "machine_ceiling_2"],
+    "demo_scaling.py": ["queued demo trials", "epochs 1w / 2w", "demo_wall_ratio_2_over_1"],
     "trainer_flops.py": [
         "share of sgemm",
         "sgemm_share_lstm_32",

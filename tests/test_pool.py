@@ -14,9 +14,11 @@ import pytest
 from sweeper.pool import LocalPool, _current_executor, collector_paused, local_pool
 
 
-def _loaded_before_any_trial() -> tuple[int, bool, bool]:
-    """In a pool process: its pid, and whether the trainer and torch's lazy parts are in."""
-    return os.getpid(), "sweeper.train" in sys.modules, "torch._dynamo" in sys.modules
+def _loaded_before_any_trial() -> tuple[int, int, bool, bool]:
+    """In a pool process: its pid, its parent's, and whether the trainer and torch's lazily
+    loaded parts are in."""
+    loaded = "sweeper.train" in sys.modules, "torch._dynamo" in sys.modules
+    return (os.getpid(), os.getppid(), *loaded)
 
 
 def _gone(pid: int) -> bool:
@@ -36,34 +38,26 @@ def _wait_until_gone(pids: list[int], seconds: float = 20.0) -> bool:
     return False
 
 
-def test_workers_run_in_processes_that_loaded_everything_beforehand() -> None:
+def test_workers_are_forked_from_a_server_that_loaded_everything() -> None:
     pool = LocalPool(2).start()
     try:
         found = pool.run(joblib.delayed(_loaded_before_any_trial)() for _ in range(2))
     finally:
         pool.close()
-    assert all(trainer and lazy_torch for _pid, trainer, lazy_torch in found), found
-    assert all(pid != os.getpid() for pid, _trainer, _lazy in found)
-    assert _wait_until_gone([pid for pid, _trainer, _lazy in found])
+    pids = [pid for pid, _parent, _trainer, _lazy in found]
+    assert len(set(pids)) == 2 and os.getpid() not in pids
+    for _pid, parent, trainer, lazy_torch in found:
+        assert trainer and lazy_torch
+        assert "forkserver" in Path(f"/proc/{parent}/cmdline").read_text()
+    assert _wait_until_gone(pids)  # closed once their work was done
 
 
-def test_closing_during_warm_up_leaves_no_process() -> None:
+def test_a_pool_closed_before_it_ran_leaves_no_worker() -> None:
     pool = LocalPool(2).start()
-    pids = _pool_pids(2)  # started, still importing torch
     pool.close()
     pool.close()  # a second close does nothing
-    assert _wait_until_gone(pids)
-
-
-def _pool_pids(count: int, seconds: float = 20.0) -> list[int]:
-    deadline = time.monotonic() + seconds
-    while time.monotonic() < deadline:
-        executor = _current_executor()
-        processes = getattr(executor, "_processes", None) or {}
-        if len(processes) == count:
-            return list(processes)
-        time.sleep(0.01)
-    raise AssertionError("the pool started no processes")
+    executor = _current_executor()
+    assert not getattr(executor, "_processes", None)
 
 
 def test_one_worker_needs_no_pool() -> None:

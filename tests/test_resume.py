@@ -130,12 +130,10 @@ def _checkpointed_worker_pids(db: Path) -> list[int]:
     return [int(value.strip('"').split(":")[1]) for (value,) in rows]
 
 
-def _loky_workers(launcher_pid: int) -> list[int]:
-    return [
-        pid
-        for pid in proc.children(launcher_pid)
-        if "loky" in proc.cmdline(pid) and "resource_tracker" not in proc.cmdline(pid)
-    ]
+def _pool_workers(launcher_pid: int) -> list[int]:
+    """The pool's worker processes: children of the launcher's fork server."""
+    servers = [pid for pid in proc.children(launcher_pid) if "forkserver" in proc.cmdline(pid)]
+    return [pid for server in servers for pid in proc.children(server)]
 
 
 @pytest.mark.parametrize("moment", ["during an epoch", "right after a checkpoint"])
@@ -143,12 +141,12 @@ def test_sigkill_one_worker_then_resume(tmp_path: Path, moment: str) -> None:
     spec = _spec(tmp_path, trials=4, workers=2, epochs=3)
     db = tmp_path / "runs" / "r.db"
     launcher = proc.start(tmp_path, "run", spec.name)
-    proc.wait_for(lambda: len(_loky_workers(launcher.pid)) == 2, 120, "two workers")
+    proc.wait_for(lambda: len(_pool_workers(launcher.pid)) == 2, 120, "two workers")
     victim: list[int] = []
 
     def checkpointed_worker() -> bool:
         victim[:] = [
-            pid for pid in _checkpointed_worker_pids(db) if pid in _loky_workers(launcher.pid)
+            pid for pid in _checkpointed_worker_pids(db) if pid in _pool_workers(launcher.pid)
         ]
         return bool(victim)
 
