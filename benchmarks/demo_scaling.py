@@ -18,9 +18,11 @@ By default every worker trains on one torch thread, so that both runs use the sa
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 import sqlite3
 import sys
 import tempfile
+import time
 from pathlib import Path
 from typing import Any
 
@@ -63,9 +65,23 @@ def one_run(spec: Path, configurations: list[dict[str, Any]], workers: int, tag:
     for params in configurations:
         study.enqueue_trial(params)
     study._storage.remove_session()  # the child process is the only writer from here
+    launched = time.time()
     wall = timed_subprocess(_run_args(spec, db, workers), spec.parent)
     epochs, stopped = _work_done(db)
-    return {"wall": wall, "epochs": epochs, "stopped": stopped}
+    return {"wall": wall, "epochs": epochs, "stopped": stopped, **_timeline(db, launched, wall)}
+
+
+def _timeline(db: Path, launched: float, wall: float) -> dict[str, float]:
+    """Start-up, the trials' span, the tail after the last trial, and the training time."""
+    with sqlite3.connect(db) as connection:
+        first, last = connection.execute(
+            "SELECT MIN(datetime_start), MAX(datetime_complete) FROM trials"
+        ).fetchone()
+        compute = connection.execute(
+            "SELECT SUM(value_json) FROM trial_user_attributes WHERE key = 'compute_seconds'"
+        ).fetchone()[0]
+    start, end = (dt.datetime.fromisoformat(t).timestamp() - launched for t in (first, last))
+    return {"start": start, "span": end - start, "tail": wall - end, "compute": float(compute)}
 
 
 def _run_args(spec: Path, db: Path, workers: int) -> list[object]:
@@ -94,7 +110,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="4 trials of 2 epochs, one round")
     args = parser.parse_args(argv)
     rounds = 1 if args.quick else args.rounds
-    rows, ratios = [], []
+    rows, ratios, phases = [], [], []
     with tempfile.TemporaryDirectory() as scratch:
         spec = demo_spec(Path(scratch), args.threads, args.quick)
         configurations = reference_configurations(spec)
@@ -104,11 +120,18 @@ def main(argv: list[str] | None = None) -> int:
             ratios.append(two["wall"] / one["wall"])
             work = [f"{one[key]} / {two[key]}" for key in ("epochs", "stopped")]
             rows.append((round_number, one["wall"], two["wall"], ratios[-1], *work))
+            for workers, run in ((1, one), (2, two)):
+                keys = ("start", "span", "tail", "compute")
+                phases.append((round_number, workers, *[run[key] for key in keys]))
     print(machine_line())
     threads = args.threads or "cores / workers"
     print(f"{len(configurations)} queued demo trials, torch threads per worker: {threads}")
     headers = ("round", "1 worker s", "2 workers s", "ratio", "epochs 1w / 2w", "stopped 1w / 2w")
     print_table(headers, rows)
+    print()
+    print("where the time goes: launch to first trial, first trial to last, after it; and")
+    print("the sum of the trials' training seconds")
+    print_table(("round", "workers", "start s", "span s", "tail s", "training s"), phases)
     print()
     print(f"demo_wall_ratio_2_over_1 {median(ratios):.3f} (target <= {TARGET})")
     return 0

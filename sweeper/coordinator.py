@@ -17,6 +17,7 @@ from sweeper.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.spec import Spec
 from sweeper.storage import backend_of, engine_of, redact, set_heartbeat
 from sweeper.study import budget_of, request_stop, top_up
+from sweeper.unstarted import fail_unstarted_trials, grace_seconds
 
 STEP_SECONDS = 2.0  # a trial budget is queued at once; heartbeats are noticed in seconds
 QUICK_STEP_SECONDS = 0.5
@@ -65,6 +66,7 @@ class Coordinator:
         seconds = max(5.0, 3.0 * self.spec.study.heartbeat)
         if lease.acquire(engine_of(self.study), self.study.study_name, self.holder, seconds):
             fail_stale_trials(self.study)
+            fail_unstarted_trials(self.study, grace_seconds(self.spec.study.heartbeat))
             self._check_failures()
             self.queued += top_up(self.study, self.spec)
         snap = snapshot(self.study, budget_of(self.spec), self.spec.study.workers)

@@ -20,6 +20,8 @@ from collections.abc import Iterable, Iterator
 from typing import Any
 
 PRELOAD_MODULE = "sweeper.worker_preload"
+# POSIX only; elsewhere loky starts each worker from scratch (seconds later)
+FORK_SERVER = "forkserver" in multiprocessing.get_all_start_methods()
 
 
 def load_trial_machinery() -> int:
@@ -74,6 +76,8 @@ class LocalPool:
 
     def start(self) -> LocalPool:
         """Start the fork server (if this process has none yet); it loads in the background."""
+        if not FORK_SERVER:
+            return self
         context = multiprocessing.get_context("forkserver")
         context.set_forkserver_preload([PRELOAD_MODULE])
         from multiprocessing import forkserver
@@ -85,7 +89,8 @@ class LocalPool:
         """Run joblib's delayed ``calls`` on the pool's processes; their results in order."""
         import joblib
 
-        with _loky_start_method("forkserver"):  # the executor keeps the method it was made with
+        # the executor keeps the start method it was made with
+        with _loky_start_method("forkserver") if FORK_SERVER else contextlib.nullcontext():
             parallel = joblib.Parallel(n_jobs=self.size, backend="loky").__enter__()
         self._busy = True
         try:

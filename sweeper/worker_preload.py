@@ -3,9 +3,16 @@
 Every worker process forked from the server starts with torch, optuna and the trainer loaded.
 """
 
+import atexit
 import contextlib
+import os
 
 from sweeper.pool import load_trial_machinery
+
+# The server outlives the launcher briefly and holds the launcher's stdout and stderr until
+# it is gone, so whoever reads them (a pipe, a test, CI) waits for it. It keeps no state and
+# its workers have ended, so it skips the interpreter's teardown of torch (about a second).
+atexit.register(os._exit, 0)
 
 # a failed preload only costs time: each worker then loads what it needs itself
 with contextlib.suppress(Exception):

@@ -11,6 +11,7 @@ from pathlib import Path
 import joblib
 import pytest
 
+from sweeper import pool as pool_module
 from sweeper.pool import LocalPool, _current_executor, collector_paused, local_pool
 
 
@@ -52,12 +53,22 @@ def test_workers_are_forked_from_a_server_that_loaded_everything() -> None:
     assert _wait_until_gone(pids)  # closed once their work was done
 
 
+def test_without_a_fork_server_loky_starts_the_workers(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(pool_module, "FORK_SERVER", False)  # as on Windows
+    pool = LocalPool(2).start()
+    try:
+        found = pool.run(joblib.delayed(_loaded_before_any_trial)() for _ in range(2))
+    finally:
+        pool.close()
+    assert [parent for _pid, parent, _trainer, _lazy in found] == [os.getpid()] * 2
+
+
 def test_a_pool_closed_before_it_ran_leaves_no_worker() -> None:
+    before = _current_executor()
     pool = LocalPool(2).start()
     pool.close()
     pool.close()  # a second close does nothing
-    executor = _current_executor()
-    assert not getattr(executor, "_processes", None)
+    assert _current_executor() is before  # no worker process was made
 
 
 def test_one_worker_needs_no_pool() -> None:

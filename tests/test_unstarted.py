@@ -1,0 +1,42 @@
+"""A trial claimed by a worker that died before its first heartbeat is retried, not kept."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from optuna.trial import TrialState
+
+from sweeper.coordinator import Coordinator
+from sweeper.launcher import open_for_launch
+from sweeper.progress import ProgressDisplay
+from sweeper.spec import load_spec
+from sweeper.storage import backend_of
+from sweeper.unstarted import fail_unstarted_trials, grace_seconds
+from tests.conftest import write_tiny_spec
+
+
+def test_claimed_without_a_heartbeat_is_failed_and_retried(
+    storage_location: str, tmp_path: Path
+) -> None:
+    spec = load_spec(write_tiny_spec(tmp_path, trials=2)).with_overrides(storage=storage_location)
+    study = open_for_launch(spec)
+    coordinator = Coordinator(study, spec, ProgressDisplay(interval=0))  # sets up the retries
+    try:
+        coordinator.step()
+        dead = study._pop_waiting_trial_id()  # claimed; its worker dies at once
+        alive = study._pop_waiting_trial_id()
+        backend_of(study).record_heartbeat(alive)
+        assert fail_unstarted_trials(study, grace=3600.0) == []  # too soon to tell
+        assert fail_unstarted_trials(study, grace=0.0) == [0]
+    finally:
+        coordinator.close()
+    by_id = {t._trial_id: t for t in study.get_trials()}
+    assert by_id[dead].state == TrialState.FAIL
+    assert by_id[alive].state == TrialState.RUNNING  # it has a heartbeat
+    (retry,) = [t for t in by_id.values() if t.state == TrialState.WAITING]
+    assert retry.system_attrs["failed_trial"] == by_id[dead].number
+
+
+def test_grace_leaves_room_for_clock_differences_between_hosts() -> None:
+    assert grace_seconds(1) == 30.0
+    assert grace_seconds(10) == 50.0
