@@ -5,6 +5,7 @@ Every worker process forked from the server starts with torch, optuna and the tr
 
 import atexit
 import contextlib
+import gc
 import os
 
 from sweeper.pool import load_trial_machinery
@@ -17,3 +18,7 @@ atexit.register(os._exit, 0)
 # a failed preload only costs time: each worker then loads what it needs itself
 with contextlib.suppress(Exception):
     load_trial_machinery()
+
+# Whatever the server has loaded stays for good: frozen, the collectors of the forked workers
+# never walk it (nor copy its memory pages by touching them).
+gc.freeze()
