@@ -17,7 +17,7 @@ lint:
 	$(VENV)/bin/ruff check sweeper tests benchmarks && $(VENV)/bin/ruff format --check sweeper tests benchmarks && $(VENV)/bin/mypy
 
 bench:
-	$(PY) benchmarks/overhead.py && $(PY) benchmarks/scaling.py && $(PY) benchmarks/report_size.py
+	$(PY) benchmarks/overhead.py && $(PY) benchmarks/scaling.py && $(PY) benchmarks/demo_scaling.py && $(PY) benchmarks/report_size.py
 
 demo:
 	$(VENV)/bin/sweeper run search_spaces/adding_lstm_demo.toml
