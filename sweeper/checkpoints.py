@@ -71,18 +71,21 @@ def load(engine: sa.Engine, study_name: str, trial_number: int) -> dict[str, Any
     return None if payload is None else decode(payload)
 
 
+DROP_CHUNK = 500  # numbers per statement: SQLite caps a statement's parameters
+
+
 def drop(engine: sa.Engine, study_name: str, trial_numbers: list[int]) -> None:
-    if not trial_numbers:
-        return
-    query = sa.delete(CHECKPOINTS).where(
-        (CHECKPOINTS.c.study_name == study_name) & CHECKPOINTS.c.trial_number.in_(trial_numbers)
-    )
+    for start in range(0, len(trial_numbers), DROP_CHUNK):
+        chunk = trial_numbers[start : start + DROP_CHUNK]
+        query = sa.delete(CHECKPOINTS).where(
+            (CHECKPOINTS.c.study_name == study_name) & CHECKPOINTS.c.trial_number.in_(chunk)
+        )
 
-    def write() -> None:
-        with engine.begin() as connection:
-            connection.execute(query)
+        def write(query: sa.Delete = query) -> None:
+            with engine.begin() as connection:
+                connection.execute(query)
 
-    retry_locked(write)
+        retry_locked(write)
 
 
 def stored(engine: sa.Engine, study_name: str) -> dict[int, int]:

@@ -27,6 +27,7 @@ from sweeper.study import (
 )
 from sweeper.workers import (
     default_threads,
+    drop_spent_checkpoints,
     in_background,
     install_stop_signals,
     run_parallel,
@@ -237,6 +238,7 @@ def _watch(
             raise error
         raise RunFailure(f"a worker stopped: {type(error).__name__}: {redact(str(error))}")
     coordinator.step()
+    drop_spent_checkpoints(coordinator.study, coordinator.spec)
 
 
 def _stop_workers(coordinator: Coordinator, finished: threading.Event, joined: bool) -> None:

@@ -257,16 +257,28 @@ def _drop_checkpoint(study: optuna.Study, trial: optuna.Trial, context: TrialCon
     if not context.spec.study.keep_best_checkpoint:
         checkpoints.drop(context.engine, context.study_name, [origin])
         return
+    drop_spent_checkpoints(study, context.spec, also=origin)
+
+
+def drop_spent_checkpoints(study: optuna.Study, spec: Spec, also: int | None = None) -> None:
+    """Drop the checkpoints of every finished trial (and of ``also``'s origin), except the
+    best one's when the spec keeps it.
+
+    The launcher calls this when a sweep ends: a worker killed between recording its trial's
+    end and dropping the checkpoint leaves one behind.
+    """
+    if spec.is_objective_plugin:
+        return
     try:
         best = study.best_trial
     except ValueError:  # no complete trial yet
         best = None
-    keep = origin_of(best) if best is not None else None
+    keep = origin_of(best) if best is not None and spec.study.keep_best_checkpoint else None
     finished = {
         origin_of(t)
         for t in study.get_trials(deepcopy=False, states=(TrialState.COMPLETE, TrialState.PRUNED))
-    } | {origin}
-    checkpoints.drop(context.engine, context.study_name, sorted(finished - {keep}))
+    } | ({also} if also is not None else set())
+    checkpoints.drop(engine_of(study), study.study_name, sorted(finished - {keep}))
 
 
 def run_parallel(

@@ -119,13 +119,17 @@ def test_killed_trial_continues_bit_for_bit(tmp_path: Path) -> None:
 
 
 def _checkpointed_worker_pids(db: Path) -> list[int]:
-    """Process ids of the workers running a trial that has saved a checkpoint."""
+    """Process ids of the workers running a trial that has saved its first epoch's checkpoint.
+
+    Two of its three epochs are still to run, so a kill shortly after lands inside the trial,
+    not in the next one (whose retry would rightly start from scratch).
+    """
     rows = proc.query(
         db,
         "SELECT a.value_json FROM trials t "
         "JOIN trial_user_attributes a ON a.trial_id = t.trial_id AND a.key = 'worker' "
         "JOIN sweeper_checkpoints c ON c.trial_number = t.number "
-        "WHERE t.state = 'RUNNING'",
+        "WHERE t.state = 'RUNNING' AND c.epoch = 1",
     )
     return [int(value.strip('"').split(":")[1]) for (value,) in rows]
 
@@ -233,3 +237,21 @@ def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
     assert retry.state == TrialState.COMPLETE and retry.user_attrs["resumed_from_epoch"] == 2
     assert retry.user_attrs["epochs"] == 2
     assert retry.user_attrs["compute_seconds"] > 0
+
+
+def test_a_sweeps_end_drops_checkpoints_that_dead_workers_left(in_tmp: Path) -> None:
+    from sweeper import checkpoints
+    from sweeper.storage import open_storage
+    from tests.conftest import invoke
+
+    spec = _spec(in_tmp, trials=1, epochs=1, sequences=64)
+    assert invoke("run", spec.name).exit_code == 0
+    db = in_tmp / "runs" / "r.db"
+    engine = open_storage(str(db)).engine
+    # a worker killed between recording its trial's end and dropping the checkpoint
+    checkpoints.save(engine, "r", 0, 1, {"epoch": 1})
+    checkpoints.save(engine, "r", 1100, 1, {"epoch": 1})  # no such trial: left alone
+    assert invoke("run", spec.name, "--trials", "2").exit_code == 0
+    assert proc.checkpoint_epochs(db) == {1100: 1}
+    checkpoints.drop(engine, "r", list(range(1200)))  # more numbers than one statement takes
+    assert proc.checkpoint_epochs(db) == {}
