@@ -12,7 +12,7 @@ import optuna
 from sweeper.checks import build_spec_task
 from sweeper.coordinator import Coordinator
 from sweeper.errors import Interrupted, RunFailure, TooManyFailures
-from sweeper.pool import LocalPool
+from sweeper.pool import LocalPool, local_pool
 from sweeper.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.seeds import derive_seed
 from sweeper.spec import Spec
@@ -96,21 +96,24 @@ def run_sweep(
 
     The first SIGINT or SIGTERM asks every worker to stop at its next window boundary and
     raises Interrupted once they have; a second one raises KeyboardInterrupt at once.
-    ``pool``: local worker processes started earlier (``sweeper.pool.local_pool``); made
-    here when the spec asks for two or more workers and none is given. Closed before returning.
+    ``pool``: local worker processes the caller started earlier and closes
+    (``sweeper.pool.local_pool``); when none is given, this makes and closes its own.
     """
-    if pool is None and not cluster and spec.study.workers > 1:
-        pool = LocalPool(spec.study.workers).start()
-    try:
-        study = open_for_launch(spec)
-        threads = spec.training.threads or default_threads(spec.study.workers)
-        if cluster:  # the cluster's workers bring their own cores
-            threads = spec.training.threads or 1
-        placement = Placement(spec.study.workers, threads, cluster, pool=pool)
-        return _drive(study, spec, placement, display or ProgressDisplay())
-    finally:
-        if pool is not None:
-            pool.close()
+    if pool is not None or cluster:
+        return _run(spec, display, cluster, pool)
+    with local_pool(spec.study.workers) as own:
+        return _run(spec, display, cluster, own)
+
+
+def _run(
+    spec: Spec, display: ProgressDisplay | None, cluster: str | None, pool: LocalPool | None
+) -> SweepResult:
+    study = open_for_launch(spec)
+    threads = spec.training.threads or default_threads(spec.study.workers)
+    if cluster:  # the cluster's workers bring their own cores
+        threads = spec.training.threads or 1
+    placement = Placement(spec.study.workers, threads, cluster, pool=pool)
+    return _drive(study, spec, placement, display or ProgressDisplay())
 
 
 def queue_only(spec: Spec) -> SweepResult:

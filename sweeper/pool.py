@@ -15,7 +15,6 @@ from __future__ import annotations
 import contextlib
 import gc
 import multiprocessing
-import os
 from collections.abc import Iterable, Iterator
 from typing import Any
 
@@ -24,8 +23,8 @@ PRELOAD_MODULE = "sweeper.worker_preload"
 FORK_SERVER = "forkserver" in multiprocessing.get_all_start_methods()
 
 
-def load_trial_machinery() -> int:
-    """Load what every trial needs, so that the first one starts at once; returns the pid.
+def load_trial_machinery() -> None:
+    """Load what every trial needs, so that the first one starts at once.
 
     Besides the imports, torch loads torch._dynamo (about 1 s) when it builds its first
     optimizer, and optuna loads alembic (about 0.3 s) when it opens its first storage;
@@ -39,7 +38,6 @@ def load_trial_machinery() -> int:
 
         torch.optim.Adam([torch.zeros(1, requires_grad=True)])
         optuna.storages.RDBStorage("sqlite://").engine.dispose()  # in memory: nothing to share
-    return os.getpid()
 
 
 @contextlib.contextmanager
