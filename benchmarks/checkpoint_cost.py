@@ -24,12 +24,12 @@ from typing import Any
 import torch
 from measure import REPO, machine_line, median, print_table
 
-from sweeper import checkpoints
-from sweeper.checks import build_spec_task
-from sweeper.params import TrialParams
-from sweeper.spec import load_spec
-from sweeper.storage import open_storage
-from sweeper.train import TrialRun
+from sweeper.spec.checks import build_spec_task
+from sweeper.spec.loading import load_spec
+from sweeper.store import checkpoints, tables
+from sweeper.store.connect import open_storage
+from sweeper.training.params import TrialParams
+from sweeper.training.trial_run import TrialRun
 
 DEMO = REPO / "search_spaces" / "adding_lstm_demo.toml"
 TARGET = 0.03
@@ -66,7 +66,7 @@ def measure(epochs: int, threads: int, db: Path) -> dict:
     params = TrialParams.from_mapping({**spec.training.defaults, **point})
     task = build_spec_task(spec)
     engine = open_storage(str(db)).engine
-    checkpoints.ensure_table(engine)
+    tables.ensure_tables(engine)
     torch.set_num_threads(threads)
     saving, plain = TrialRun(task, params, seed=1), TrialRun(task, params, seed=1)
     rows = []

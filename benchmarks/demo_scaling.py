@@ -56,8 +56,8 @@ def reference_configurations(spec: Path) -> list[dict[str, Any]]:
 
 def one_run(spec: Path, configurations: list[dict[str, Any]], workers: int, tag: str) -> dict:
     """Queue ``configurations`` in a fresh study, then time `sweeper run` on it."""
-    from sweeper.launcher import open_for_launch
-    from sweeper.spec import load_spec
+    from sweeper.spec.loading import load_spec
+    from sweeper.sweep.launcher import open_for_launch
 
     db = spec.parent / f"{tag}.db"
     loaded = load_spec(spec).with_overrides(workers=workers, storage=str(db))
@@ -91,7 +91,7 @@ def _run_args(spec: Path, db: Path, workers: int) -> list[object]:
 
 
 def _study_name(spec: Path) -> str:
-    from sweeper.spec import load_spec
+    from sweeper.spec.loading import load_spec
 
     return load_spec(spec).study.name
 

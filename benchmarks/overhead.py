@@ -67,9 +67,9 @@ def prepare(folder: Path, spec_text: str) -> tuple[Path, Path]:
     import torch
 
     from sweeper.seeds import derive_seed, trial_seed
-    from sweeper.space import grid_points
-    from sweeper.spec import load_spec
-    from sweeper.tasks import build_task
+    from sweeper.spec.loading import load_spec
+    from sweeper.spec.space import grid_points
+    from sweeper.tasks.registry import build_task
 
     spec_path = folder / "overhead.toml"
     spec_path.write_text(spec_text)

@@ -18,8 +18,8 @@ from pathlib import Path
 
 import optuna
 
-from sweeper.report import build_report
-from sweeper.report.synthetic import make_synthetic_study
+from benchmarks.synthetic_study import make_synthetic_study
+from sweeper.report.render import build_report
 
 TARGET_SECONDS = 15.0
 TARGET_MEGABYTES = 8.0

@@ -58,10 +58,10 @@ rule = "none"
 
 CEILING = """
 import sys, time, torch
-from sweeper.params import TrialParams
-from sweeper.spec import load_spec
-from sweeper.tasks import build_task
-from sweeper.train import train
+from sweeper.training.params import TrialParams
+from sweeper.spec.loading import load_spec
+from sweeper.tasks.registry import build_task
+from sweeper.training.trial_run import train
 torch.set_num_threads(1)
 spec = load_spec(sys.argv[1])
 task = build_task(spec.task, spec.base_dir, spec.source)
@@ -93,11 +93,11 @@ def thread_cost(spec: Path, rounds: int) -> tuple[int, float]:
     """One worker's epoch time with sweeper's default threads over one thread, alternated."""
     import torch
 
-    from sweeper.params import TrialParams
-    from sweeper.spec import load_spec
-    from sweeper.tasks import build_task
-    from sweeper.train import TrialRun
-    from sweeper.workers import default_threads
+    from sweeper.spec.loading import load_spec
+    from sweeper.sweep.workers import default_threads
+    from sweeper.tasks.registry import build_task
+    from sweeper.training.params import TrialParams
+    from sweeper.training.trial_run import TrialRun
 
     loaded = load_spec(spec)
     task = build_task(loaded.task, loaded.base_dir, loaded.source)

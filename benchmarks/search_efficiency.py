@@ -38,9 +38,10 @@ from measure import REPO, machine_line, median, print_table
 
 sys.path.insert(0, str(REPO))
 
-from sweeper.launcher import run_sweep
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import Spec, parse_spec
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.sections import Spec
+from sweeper.sweep.launcher import run_sweep
+from sweeper.sweep.progress import ProgressDisplay
 
 TARGET_RATIO = 3.0
 SPEC = """

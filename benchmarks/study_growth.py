@@ -35,14 +35,15 @@ from optuna.distributions import distribution_to_json
 from optuna.storages._rdb import models  # the trial tables, for a bulk insert
 from optuna.trial import TrialState
 
-from sweeper.coordinator import Coordinator
-from sweeper.launcher import open_for_launch, run_sweep
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import Spec, parse_spec
-from sweeper.storage import engine_of
-from sweeper.study import top_up
-from sweeper.telemetry import EPOCHS as TELEMETRY
-from sweeper.workers import work
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.sections import Spec
+from sweeper.store.connect import engine_of
+from sweeper.store.tables import EPOCHS as TELEMETRY
+from sweeper.sweep.coordinator import Coordinator
+from sweeper.sweep.launcher import open_for_launch, run_sweep
+from sweeper.sweep.progress import ProgressDisplay
+from sweeper.sweep.study import top_up
+from sweeper.sweep.workers import work
 
 TARGET_MS = 250.0
 EPOCHS = 3

@@ -26,9 +26,9 @@ from collections.abc import Callable
 import torch
 from measure import machine_line, median, print_table
 
-from sweeper.params import TrialParams
 from sweeper.tasks.base import Baseline, SequenceSet, Split, Task
-from sweeper.train import TrialRun
+from sweeper.training.params import TrialParams
+from sweeper.training.trial_run import TrialRun
 
 GATES = {"lstm": 4, "gru": 3, "elman": 1}
 INPUTS, OUTPUTS, UNROLL, WINDOWS = 16, 1, 25, 2

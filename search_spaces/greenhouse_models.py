@@ -3,7 +3,7 @@
 sweeper calls ``skip_gru(params, input_size, output_size)`` once per trial, with the trial's
 training parameters (``hidden``, ``layers``, ``dropout``, ... as a dict), and trains what it
 returns with its own truncated-BPTT loop, clipping, telemetry and checkpoints. The module
-must keep the contract of ``sweeper.models.SequenceModel``: ``forward(x, state)`` returns
+must keep the contract of ``sweeper.training.models.SequenceModel``: ``forward(x, state)`` returns
 ``(outputs, state)``, plus ``initial_state(batch)`` and ``detach_state(state)``.
 """
 

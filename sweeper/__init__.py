@@ -2,7 +2,7 @@
 
 The public API; everything else is internal and may change. Names other than the exceptions
 load on first use, so that the command line and fresh worker processes import torch only
-when they need it (the launcher starts its pool before that; see ``sweeper.pool``).
+when they need it (the launcher starts its pool before that; see ``sweeper.sweep.pool``).
 """
 
 import typing as _typing
@@ -19,30 +19,32 @@ from sweeper.errors import (
 )
 
 if _typing.TYPE_CHECKING:
-    from sweeper.launcher import SweepResult, run_sweep
-    from sweeper.params import TrialParams
-    from sweeper.report import build_report, export_study
-    from sweeper.saved_model import load_model
-    from sweeper.spec import Spec, load_spec, parse_spec
+    from sweeper.report.export import export_study
+    from sweeper.report.render import build_report
+    from sweeper.results.saved_model import load_model
+    from sweeper.spec.loading import load_spec, parse_spec
+    from sweeper.spec.sections import Spec
+    from sweeper.sweep.launcher import SweepResult, run_sweep
     from sweeper.tasks.base import Baseline, SequenceSet, Task
-    from sweeper.telemetry import EpochRecord
+    from sweeper.training.epoch_record import EpochRecord
+    from sweeper.training.params import TrialParams
 
 __version__ = "0.1.0"
 
 _LAZY = {
     "Baseline": "sweeper.tasks.base",
-    "EpochRecord": "sweeper.telemetry",
+    "EpochRecord": "sweeper.training.epoch_record",
     "SequenceSet": "sweeper.tasks.base",
-    "Spec": "sweeper.spec",
-    "SweepResult": "sweeper.launcher",
+    "Spec": "sweeper.spec.sections",
+    "SweepResult": "sweeper.sweep.launcher",
     "Task": "sweeper.tasks.base",
-    "TrialParams": "sweeper.params",
-    "build_report": "sweeper.report",
-    "export_study": "sweeper.report",
-    "load_model": "sweeper.saved_model",
-    "load_spec": "sweeper.spec",
-    "parse_spec": "sweeper.spec",
-    "run_sweep": "sweeper.launcher",
+    "TrialParams": "sweeper.training.params",
+    "build_report": "sweeper.report.render",
+    "export_study": "sweeper.report.export",
+    "load_model": "sweeper.results.saved_model",
+    "load_spec": "sweeper.spec.loading",
+    "parse_spec": "sweeper.spec.loading",
+    "run_sweep": "sweeper.sweep.launcher",
 }
 
 

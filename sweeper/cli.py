@@ -1,4 +1,8 @@
-"""The command line: parse, call the library, turn SweeperError into a message and exit code."""
+"""The command line: parse, call the library, turn SweeperError into a message and exit code.
+
+Each command imports what it needs when it runs (start-up speed: `sweeper check` must not
+wait for torch, and `sweeper run` starts its pool before torch loads).
+"""
 
 from __future__ import annotations
 
@@ -12,7 +16,7 @@ import click
 from sweeper.errors import Interrupted, SweeperError
 
 if TYPE_CHECKING:
-    from sweeper.spec import Spec
+    from sweeper.spec.sections import Spec
 
 
 class SweeperGroup(click.Group):
@@ -22,7 +26,7 @@ class SweeperGroup(click.Group):
         try:
             return super().invoke(ctx)
         except SweeperError as error:
-            from sweeper.storage import redact
+            from sweeper.store.connect import redact
 
             click.echo(f"sweeper: error: {redact(str(error))}", err=True)
             ctx.exit(error.exit_code)
@@ -42,8 +46,8 @@ def main() -> None:
 @click.argument("specs", nargs=-1, required=True, type=click.Path(dir_okay=False))
 def check(specs: tuple[str, ...]) -> None:
     """Validate spec files; print the search space and the planned budget."""
-    from sweeper.describe import describe_spec
-    from sweeper.spec import load_spec
+    from sweeper.spec.describe import describe_spec
+    from sweeper.spec.loading import load_spec
 
     for path in specs:
         click.echo(describe_spec(load_spec(path)))
@@ -69,8 +73,8 @@ def run(
     cluster: str | None,
 ) -> None:
     """Create the study or continue it, run it to its budget, write the summary."""
-    from sweeper.pool import collector_paused, local_pool
-    from sweeper.spec import load_spec
+    from sweeper.spec.loading import load_spec
+    from sweeper.sweep.pool import collector_paused, local_pool
 
     here = None if workers == 0 else workers
 
@@ -85,15 +89,15 @@ def run(
     with local_pool(0 if cluster else read(check_task=False).study.workers) as pool:
         with collector_paused():  # checking the spec against its task imports torch
             spec = read(check_task=True)
-            from sweeper.launcher import run_sweep
+            from sweeper.sweep.launcher import run_sweep
 
         result = run_sweep(spec, cluster=cluster, pool=pool)
     _finish(result, report_path)
 
 
 def _queue(spec: Spec) -> None:
-    from sweeper.launcher import queue_only
-    from sweeper.storage import redact
+    from sweeper.store.connect import redact
+    from sweeper.sweep.launcher import queue_only
 
     result = queue_only(spec)
     click.echo(result.snapshot.line())
@@ -109,8 +113,8 @@ def resume(
     study_location: str, workers: int | None, trials: int | None, report_path: str | None
 ) -> None:
     """Continue an interrupted study from the spec stored inside it."""
-    from sweeper.launcher import run_sweep
-    from sweeper.study import load_existing
+    from sweeper.sweep.launcher import run_sweep
+    from sweeper.sweep.study import load_existing
 
     _study, spec = load_existing(study_location)
     spec = spec.with_overrides(trials=trials, workers=workers, storage=study_location)
@@ -121,7 +125,7 @@ def resume(
 @click.argument("study_location", metavar="STUDY")
 def worker(study_location: str) -> None:
     """Join a study from this host and work until its budget is met."""
-    from sweeper.launcher import join_sweep
+    from sweeper.sweep.launcher import join_sweep
 
     result = join_sweep(study_location)
     click.echo(result.snapshot.line())
@@ -136,7 +140,7 @@ def entry() -> None:
 
 
 def _finish(result: object, report_path: str | None) -> None:
-    from sweeper.launcher import SweepResult
+    from sweeper.sweep.launcher import SweepResult
 
     assert isinstance(result, SweepResult)
     if result.queued == 0 and result.ran == 0:
@@ -149,7 +153,7 @@ def _finish(result: object, report_path: str | None) -> None:
         click.echo(result.best_line)
     output = Path(report_path) if report_path else default_report_path(result.location)
     try:
-        from sweeper.report import build_report
+        from sweeper.report.render import build_report
     except ImportError:  # the summary is optional until its package is installed
         return
     written = build_report(result.location, output, result.study_name)
@@ -158,7 +162,7 @@ def _finish(result: object, report_path: str | None) -> None:
 
 def default_report_path(location: str) -> Path:
     """Beside the study database (or in runs/ for a server URL)."""
-    from sweeper.storage import sqlite_path, storage_url
+    from sweeper.store.connect import sqlite_path, storage_url
 
     path = sqlite_path(storage_url(location))
     if path is None:
@@ -170,9 +174,9 @@ def default_report_path(location: str) -> Path:
 @click.argument("study_location", metavar="STUDY")
 def status(study_location: str) -> None:
     """Trials by state, best so far, running trials with epoch and age, ETA."""
-    from sweeper.describe import status_table
-    from sweeper.progress import snapshot
-    from sweeper.study import budget_of, load_existing
+    from sweeper.results.status import status_table
+    from sweeper.sweep.progress import snapshot
+    from sweeper.sweep.study import budget_of, load_existing
 
     study, spec = load_existing(study_location)
     snap = snapshot(study, budget_of(spec), spec.study.workers)
@@ -184,7 +188,7 @@ def status(study_location: str) -> None:
 @click.option("-o", "--output", type=click.Path(dir_okay=False), help="Where to write the page.")
 def report(study_location: str, output: str | None) -> None:
     """Write the static HTML summary of a study."""
-    from sweeper.report import build_report
+    from sweeper.report.render import build_report
 
     path = Path(output) if output else default_report_path(study_location)
     click.echo(f"summary: {build_report(study_location, path)}")
@@ -196,7 +200,7 @@ def report(study_location: str, output: str | None) -> None:
 @click.option("-o", "--output", type=click.Path(), required=True, help="Output path.")
 def export(study_location: str, fmt: str, output: str) -> None:
     """Write flat tables of trials, parameters and epochs."""
-    from sweeper.report import export_study
+    from sweeper.report.export import export_study
 
     for path in export_study(study_location, Path(output), fmt):  # type: ignore[arg-type]
         click.echo(str(path))
@@ -210,8 +214,14 @@ def replay(study_location: str, trial_number: int) -> None:
 
     Exits 0 when every recorded value agrees exactly, 1 when any differs.
     """
-    from sweeper.replay import epoch_lines, header_lines, plan_replay, run_replay, verdict_line
-    from sweeper.study import load_existing
+    from sweeper.results.replay import (
+        epoch_lines,
+        header_lines,
+        plan_replay,
+        run_replay,
+        verdict_line,
+    )
+    from sweeper.sweep.study import load_existing
 
     study, spec = load_existing(study_location)
     plan = plan_replay(study, spec, trial_number)
@@ -234,9 +244,9 @@ def best(study_location: str, retrain: bool, save_path: str | None) -> None:
     With --retrain --save PATH, train them on the training plus validation data for the
     epochs the trial ran, score the held-out split and save the model (sweeper.load_model).
     """
-    from sweeper.best import epoch_line, fragment, refit_best, refit_lines, start_line
-    from sweeper.saved_model import save_model
-    from sweeper.study import load_existing
+    from sweeper.results.best import epoch_line, fragment, refit_best, refit_lines, start_line
+    from sweeper.results.saved_model import save_model
+    from sweeper.sweep.study import load_existing
 
     if retrain != (save_path is not None):
         raise click.UsageError("--retrain and --save PATH go together")

@@ -77,7 +77,7 @@ def curves(db: Path) -> dict[int, list[tuple]]:
 
 
 def trials(db: Path, name: str) -> list[optuna.trial.FrozenTrial]:
-    from sweeper.storage import open_storage
+    from sweeper.store.connect import open_storage
 
     study = optuna.load_study(study_name=name, storage=open_storage(str(db), create=False))
     return study.get_trials()
@@ -100,7 +100,7 @@ def cmdline(pid: int) -> str:
 
 
 def trials_at(location: str, name: str) -> list[optuna.trial.FrozenTrial]:
-    from sweeper.storage import open_storage
+    from sweeper.store.connect import open_storage
 
     study = optuna.load_study(study_name=name, storage=open_storage(location, create=False))
     return study.get_trials()

@@ -14,11 +14,11 @@ import pytest
 import torch
 
 import sweeper
-from sweeper.best import refit_best, toml_value
-from sweeper.params import TrialParams
-from sweeper.spec import parse_spec
-from sweeper.storage import open_storage
-from sweeper.study import load_existing
+from sweeper.results.best import refit_best, toml_value
+from sweeper.spec.loading import parse_spec
+from sweeper.store.connect import open_storage
+from sweeper.sweep.study import load_existing
+from sweeper.training.params import TrialParams
 from tests.conftest import invoke, write_tiny_spec
 
 SERIES = """
@@ -190,7 +190,7 @@ def test_loaded_model_describes_its_task_and_scaling(in_tmp: Path) -> None:
     assert info["held_out"] == "test" and info["study"] == "tanks"
     assert info["spec_text"] == SERIES
     _study, spec = load_existing("runs/tanks.db")
-    task = sweeper.tasks.build_task(spec.task, spec.base_dir, spec.source)
+    task = sweeper.tasks.registry.build_task(spec.task, spec.base_dir, spec.source)
     mean, std = model.target_scaling
     assert mean.tolist() == task.target_scaling.mean.tolist()
     assert std.tolist() == task.target_scaling.std.tolist()

@@ -6,12 +6,12 @@ from pathlib import Path
 
 import pytest
 
-from sweeper import coordinator as coordinating
-from sweeper.coordinator import Coordinator, _queue_short
-from sweeper.launcher import open_for_launch
-from sweeper.progress import ProgressDisplay, Snapshot
-from sweeper.spec import load_spec
-from sweeper.study import Tally
+from sweeper.sweep import coordinator as coordinating
+from sweeper.spec.loading import load_spec
+from sweeper.sweep.coordinator import Coordinator, _queue_short
+from sweeper.sweep.launcher import open_for_launch
+from sweeper.sweep.progress import ProgressDisplay, Snapshot
+from sweeper.sweep.study import Tally
 from tests.conftest import write_tiny_spec
 
 

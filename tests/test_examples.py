@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pytest
 
-from sweeper.spec import load_spec
+from sweeper.spec.loading import load_spec
 from tests.conftest import invoke
 
 EXAMPLES = sorted((Path(__file__).parent.parent / "search_spaces").glob("*.toml"))

@@ -14,11 +14,13 @@ import sqlite_utils
 from optuna.distributions import CategoricalDistribution, FloatDistribution, IntDistribution
 from optuna.trial import TrialState
 
+from benchmarks.synthetic_study import synthetic_trial
 from sweeper.errors import InputError
-from sweeper.report import export_study
-from sweeper.report.synthetic import synthetic_trial
-from sweeper.storage import open_storage
-from sweeper.telemetry import EpochRecord, ensure_tables, write_epoch
+from sweeper.report.export import export_study
+from sweeper.store.connect import open_storage
+from sweeper.store.epoch_rows import write_epoch
+from sweeper.store.tables import ensure_tables
+from sweeper.training.epoch_record import EpochRecord
 
 SPACE = {
     "lr": FloatDistribution(1e-4, 1.0, log=True),

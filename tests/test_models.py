@@ -6,8 +6,8 @@ import pytest
 import torch
 from torch import nn
 
-from sweeper.models import SequenceModel, build_model
-from sweeper.params import CELLS, TrialParams
+from sweeper.training.models import SequenceModel, build_model
+from sweeper.training.params import CELLS, TrialParams
 
 MODULES = {"elman": nn.RNN, "gru": nn.GRU, "lstm": nn.LSTM}
 

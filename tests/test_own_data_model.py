@@ -12,11 +12,10 @@ import torch
 from optuna.trial import TrialState
 
 from sweeper.errors import SpecError
-from sweeper.model_plugin import PluginBuilder, model_builder
-from sweeper.models import build_model
-from sweeper.params import TrialParams
-from sweeper.storage import open_storage
-from sweeper.tasks import build_task
+from sweeper.store.connect import open_storage
+from sweeper.training.model_plugin import PluginBuilder, build_task_with_model, model_builder
+from sweeper.training.models import build_model
+from sweeper.training.params import TrialParams
 from tests.conftest import invoke, write_tiny_spec
 
 MODELS = """
@@ -83,7 +82,7 @@ def write_module(folder: Path) -> str:
 
 
 def adding(folder: Path, **options):
-    return build_task({"kind": "adding", "length": 6, **options}, folder, "m.toml")
+    return build_task_with_model({"kind": "adding", "length": 6, **options}, folder, "m.toml")
 
 
 def test_the_function_gets_the_trial_params_and_the_task_sizes(tmp_path: Path) -> None:

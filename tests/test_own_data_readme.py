@@ -11,8 +11,8 @@ from pathlib import Path
 
 import pytest
 
-from sweeper.launcher import run_sweep
-from sweeper.spec import load_spec
+from sweeper.spec.loading import load_spec
+from sweeper.sweep.launcher import run_sweep
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -14,10 +14,10 @@ from pathlib import Path
 import numpy as np
 
 import sweeper
-from sweeper.launcher import run_sweep
-from sweeper.saved_model import SavedModel
-from sweeper.spec import load_spec
-from sweeper.tasks import build_task
+from sweeper.results.saved_model import SavedModel
+from sweeper.spec.loading import load_spec
+from sweeper.sweep.launcher import run_sweep
+from sweeper.tasks.registry import build_task
 from tests.conftest import invoke
 
 SUNSPOTS = """

@@ -9,9 +9,9 @@ import pytest
 import torch
 
 from sweeper.errors import SpecError
-from sweeper.params import TrialParams
-from sweeper.tasks import build_task
-from sweeper.train import TrialRun
+from sweeper.tasks.registry import build_task
+from sweeper.training.params import TrialParams
+from sweeper.training.trial_run import TrialRun
 
 RNG = np.random.default_rng(0)
 

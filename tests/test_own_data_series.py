@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from sweeper.errors import SpecError
-from sweeper.tasks import build_task
 from sweeper.tasks.refit import RefitTask
+from sweeper.tasks.registry import build_task
 
 
 def raw_series(rows: int = 200) -> np.ndarray:

@@ -11,14 +11,14 @@ from pathlib import Path
 import joblib
 import pytest
 
-from sweeper import pool as pool_module
-from sweeper.pool import LocalPool, _current_executor, collector_paused, local_pool
+from sweeper.sweep import pool as pool_module
+from sweeper.sweep.pool import LocalPool, _current_executor, collector_paused, local_pool
 
 
 def _loaded_before_any_trial() -> tuple[int, int, bool, bool]:
     """In a pool process: its pid, its parent's, and whether the trainer and torch's lazily
     loaded parts are in."""
-    loaded = "sweeper.train" in sys.modules, "torch._dynamo" in sys.modules
+    loaded = "sweeper.training.trial_run" in sys.modules, "torch._dynamo" in sys.modules
     return (os.getpid(), os.getppid(), *loaded)
 
 

@@ -12,10 +12,11 @@ import optuna
 import pytest
 from optuna.trial import TrialState
 
-from sweeper.launcher import run_sweep
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import Spec, parse_spec
-from sweeper.study import load_existing, make_pruner
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.sections import Spec
+from sweeper.sweep.launcher import run_sweep
+from sweeper.sweep.progress import ProgressDisplay
+from sweeper.sweep.study import load_existing, make_pruner
 
 REPO = Path(__file__).resolve().parents[1]
 TRAINING_SPEC = """

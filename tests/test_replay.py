@@ -9,7 +9,7 @@ import optuna
 from optuna.trial import TrialState
 
 from sweeper.seeds import trial_seed
-from sweeper.storage import open_storage
+from sweeper.store.connect import open_storage
 from tests.conftest import invoke, write_tiny_spec
 
 DEMO = Path(__file__).resolve().parents[1] / "search_spaces" / "adding_lstm_demo.toml"

@@ -11,9 +11,9 @@ import pytest
 from optuna.distributions import FloatDistribution
 from optuna.trial import TrialState
 
-from sweeper.report import build_report
-from sweeper.report.synthetic import make_synthetic_study, synthetic_trial
-from sweeper.storage import open_storage
+from benchmarks.synthetic_study import make_synthetic_study, synthetic_trial
+from sweeper.report.render import build_report
+from sweeper.store.connect import open_storage
 
 CHROMIUM = Path("/usr/bin/chromium")
 MARK = "document.documentElement.dataset.pwned"

@@ -7,12 +7,12 @@ import math
 from optuna.distributions import CategoricalDistribution, FloatDistribution
 from optuna.trial import TrialState
 
+from benchmarks.synthetic_study import synthetic_trial
 from sweeper.report.collect import build_tables
-from sweeper.report.gradients import advice, gradient_table
+from sweeper.report.gradient_findings import advice, gradient_table
 from sweeper.report.ranking import pareto_front, ranked
-from sweeper.report.sections_outcome import baseline_comparison
-from sweeper.report.synthetic import synthetic_trial
-from sweeper.telemetry import EPOCH_FIELDS
+from sweeper.report.sections_choice import baseline_comparison
+from sweeper.training.epoch_record import EPOCH_FIELDS
 
 SPACE = {"lr": FloatDistribution(1e-4, 1.0, log=True), "clip": CategoricalDistribution([0.0, 1.0])}
 

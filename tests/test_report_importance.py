@@ -11,10 +11,10 @@ import pytest
 from optuna.distributions import CategoricalDistribution, FloatDistribution, IntDistribution
 from SALib.test_functions import Ishigami
 
+from benchmarks.synthetic_study import synthetic_trial
 from sweeper.report.collect import read_study
 from sweeper.report.importance import MIN_TRIALS, param_importance
-from sweeper.report.synthetic import synthetic_trial
-from sweeper.storage import open_storage
+from sweeper.store.connect import open_storage
 
 
 def _optimize(location: Path, name: str, objective, trials: int, seed: int) -> None:

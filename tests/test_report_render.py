@@ -12,12 +12,11 @@ import pytest
 from optuna.distributions import CategoricalDistribution, FloatDistribution
 from optuna.trial import TrialState
 
-from sweeper.report import build_report
+from benchmarks.synthetic_study import make_synthetic_study, synthetic_trial
 from sweeper.report.collect import read_study
 from sweeper.report.escape import script_json
-from sweeper.report.render import render_page
-from sweeper.report.synthetic import make_synthetic_study, synthetic_trial
-from sweeper.storage import open_storage
+from sweeper.report.render import build_report, render_page
+from sweeper.store.connect import open_storage
 
 SCRIPT = "<script>alert(1)</script>"
 ATTRIBUTE = '"onload="alert(2)'

@@ -206,11 +206,12 @@ def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
 ) -> None:
     from optuna.storages import RetryHeartbeatStaleTrialCallback
 
-    from sweeper import checkpoints, runner
-    from sweeper.launcher import open_for_launch
-    from sweeper.spec import load_spec
-    from sweeper.study import top_up
-    from sweeper.workers import work
+    from sweeper.spec.loading import load_spec
+    from sweeper.store import checkpoints
+    from sweeper.sweep import runner
+    from sweeper.sweep.launcher import open_for_launch
+    from sweeper.sweep.study import top_up
+    from sweeper.sweep.workers import work
 
     spec = load_spec(_spec(in_tmp, trials=1, epochs=2, sequences=64))
     study = open_for_launch(spec)
@@ -240,8 +241,8 @@ def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
 
 
 def test_a_sweeps_end_drops_checkpoints_that_dead_workers_left(in_tmp: Path) -> None:
-    from sweeper import checkpoints
-    from sweeper.storage import open_storage
+    from sweeper.store import checkpoints
+    from sweeper.store.connect import open_storage
     from tests.conftest import invoke
 
     spec = _spec(in_tmp, trials=1, epochs=1, sequences=64)

@@ -13,10 +13,10 @@ import pytest
 from optuna.trial import TrialState
 
 from sweeper.errors import SpecError
-from sweeper.launcher import run_sweep
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import parse_spec
-from sweeper.study import load_existing, make_sampler
+from sweeper.spec.loading import parse_spec
+from sweeper.sweep.launcher import run_sweep
+from sweeper.sweep.progress import ProgressDisplay
+from sweeper.sweep.study import load_existing, make_sampler
 
 REPO = Path(__file__).resolve().parents[1]
 TRAINING = """

@@ -11,10 +11,11 @@ import pytest
 from optuna.trial import FrozenTrial, TrialState
 
 from sweeper.errors import SpecError
-from sweeper.launcher import run_sweep
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import Spec, parse_spec
-from sweeper.study import (
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.sections import Spec
+from sweeper.sweep.launcher import run_sweep
+from sweeper.sweep.progress import ProgressDisplay
+from sweeper.sweep.study import (
     budget_met,
     claim_exceeds_budget,
     compute_room,

@@ -14,10 +14,10 @@ from pathlib import Path
 
 import pytest
 
-from sweeper.launcher import run_sweep
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import parse_spec
-from sweeper.study import load_existing
+from sweeper.spec.loading import parse_spec
+from sweeper.sweep.launcher import run_sweep
+from sweeper.sweep.progress import ProgressDisplay
+from sweeper.sweep.study import load_existing
 
 REPO = Path(__file__).resolve().parents[1]
 SEEDS = range(5)

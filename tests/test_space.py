@@ -8,8 +8,8 @@ import optuna
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from sweeper.space import Choices, Range, draw, grid_points, parse_entry
-from sweeper.spec import parse_spec
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.space import Choices, Range, draw, grid_points, parse_entry
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 

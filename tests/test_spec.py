@@ -8,8 +8,8 @@ from pathlib import Path
 import pytest
 
 from sweeper.errors import SpecError
-from sweeper.space import Choices, Fixed, Range
-from sweeper.spec import load_spec, parse_spec
+from sweeper.spec.loading import load_spec, parse_spec
+from sweeper.spec.space import Choices, Fixed, Range
 
 GOOD = """
 [study]
@@ -105,7 +105,7 @@ def test_grid_needs_steps() -> None:
         '{ between = [1e-3, 1e-1], scale = "log" }', "{ between = [0.01, 0.03], step = 0.01 }"
     )
     spec = parse_spec(stepped, "grid.toml")
-    from sweeper.study import budget_of
+    from sweeper.spec.sections import budget_of
 
     assert budget_of(spec) == 4  # the trial budget is below the 19 * 2 * 3 grid points
 

@@ -8,7 +8,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from sweeper.errors import SpecError
-from sweeper.spec import Spec, parse_spec
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.sections import Spec
 
 KEYS = [
     "name",

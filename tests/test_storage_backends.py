@@ -10,8 +10,9 @@ import optuna
 import torch
 from optuna.trial import TrialState
 
-from sweeper import checkpoints, lease, telemetry
-from sweeper.storage import engine_of, open_storage
+from sweeper.store import checkpoints, epoch_rows, tables
+from sweeper.store.connect import engine_of, open_storage
+from sweeper.sweep import lease
 from tests.conftest import invoke, write_tiny_spec
 
 
@@ -25,7 +26,7 @@ def test_sweep_status_report_export(in_tmp: Path, storage_location: str) -> None
     assert result.exit_code == 0, result.output
     study = _study(storage_location, "tiny")
     assert [t.state for t in study.get_trials()] == [TrialState.COMPLETE] * 3
-    rows = telemetry.read_epochs(engine_of(study), "tiny")
+    rows = epoch_rows.read_epochs(engine_of(study), "tiny")
     assert [(r["trial_number"], r["epoch"]) for r in rows] == [
         (n, e) for n in range(3) for e in (1, 2)
     ]
@@ -41,7 +42,7 @@ def test_sweep_status_report_export(in_tmp: Path, storage_location: str) -> None
 def test_checkpoint_save_load_drop(storage_location: str) -> None:
     storage = open_storage(storage_location)
     engine = storage.engine
-    checkpoints.ensure_table(engine)
+    tables.ensure_tables(engine)
     state = {"epoch": 2, "weights": torch.arange(6.0).reshape(2, 3), "rng": [1, 2, 3]}
     checkpoints.save(engine, "s", 4, 2, state)
     checkpoints.save(engine, "s", 4, 3, {**state, "epoch": 3})  # replaces, never adds
@@ -56,7 +57,7 @@ def test_checkpoint_save_load_drop(storage_location: str) -> None:
 
 def test_one_coordinator_at_a_time(storage_location: str) -> None:
     engine = open_storage(storage_location).engine
-    lease.ensure_table(engine)
+    tables.ensure_tables(engine)
     assert lease.acquire(engine, "s", "host-a", seconds=0.5)
     assert not lease.acquire(engine, "s", "host-b", seconds=0.5)
     assert lease.acquire(engine, "s", "host-a", seconds=0.5)  # the holder renews

@@ -10,14 +10,14 @@ import optuna
 import pytest
 from optuna.trial import TrialState
 
-from sweeper.space import parse_search
-from sweeper.spec import load_spec
-from sweeper.study import make_sampler
+from sweeper.spec.loading import load_spec
+from sweeper.spec.space import parse_search
+from sweeper.sweep.study import make_sampler
 from tests.conftest import invoke, write_tiny_spec
 
 
 def _trials(db: Path, name: str) -> list[optuna.trial.FrozenTrial]:
-    from sweeper.storage import open_storage
+    from sweeper.store.connect import open_storage
 
     return optuna.load_study(study_name=name, storage=open_storage(str(db))).get_trials()
 
@@ -97,7 +97,7 @@ def test_worker_samplers_are_seeded_apart(tmp_path: Path) -> None:
         draws = []
         for _ in range(5):
             trial = study.ask()
-            from sweeper.space import draw
+            from sweeper.spec.space import draw
 
             draws.append(draw(trial, space)["lr"])
             study.tell(trial, 1.0)

@@ -5,7 +5,7 @@ from pathlib import Path
 import pytest
 import torch
 
-from sweeper.tasks import build_task
+from sweeper.tasks.registry import build_task
 
 
 def adding(**options):

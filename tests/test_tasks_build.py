@@ -8,7 +8,9 @@ import pytest
 import torch
 
 from sweeper.errors import SpecError
-from sweeper.tasks import TASK_KINDS, Task, build_task, load_objective
+from sweeper.tasks.base import Task
+from sweeper.tasks.objective import load_objective
+from sweeper.tasks.registry import TASK_KINDS, build_task
 
 GENERATED = {
     "adding": {"length": 12},
@@ -124,7 +126,7 @@ def write_module(folder: Path, body: str) -> str:
 
 
 PLUGIN = """
-from sweeper.tasks import build_task
+from sweeper.tasks.registry import build_task
 from pathlib import Path
 
 def make(options):

@@ -7,7 +7,7 @@ import pytest
 import torch
 import torch.nn.functional as F
 
-from sweeper.tasks import build_task
+from sweeper.tasks.registry import build_task
 
 
 def copy_task(**options):

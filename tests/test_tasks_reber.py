@@ -9,8 +9,8 @@ import torch
 import torch.nn.functional as F
 
 from sweeper.errors import SpecError
-from sweeper.tasks import build_task
 from sweeper.tasks.reber import ALPHABET, accepts, generate
+from sweeper.tasks.registry import build_task
 
 # Walked by hand through the Reber graph (Reber 1967, as drawn by Hochreiter & Schmidhuber
 # 1997) and wrapped as B T ... T E or B P ... P E.

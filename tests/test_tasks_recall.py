@@ -6,7 +6,7 @@ import pytest
 import torch
 
 from sweeper.errors import SpecError
-from sweeper.tasks import build_task
+from sweeper.tasks.registry import build_task
 
 
 def recall(**options):

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from sweeper.errors import SpecError
-from sweeper.tasks import build_task
+from sweeper.tasks.registry import build_task
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "search_spaces"
 

@@ -7,7 +7,7 @@ import pytest
 import torch
 
 from sweeper.errors import SpecError
-from sweeper.tasks import build_task
+from sweeper.tasks.registry import build_task
 
 
 def text_task(folder: Path, content: str, **options):

@@ -14,11 +14,11 @@ import pytest
 import torch
 import torch.nn.functional as F
 
-from sweeper.models import build_model
-from sweeper.params import CELLS, TrialParams
 from sweeper.tasks.base import Baseline, Kind, SequenceSet, Split, Task
-from sweeper.telemetry import EpochRecord
-from sweeper.train import (
+from sweeper.training.epoch_record import EpochRecord
+from sweeper.training.models import build_model
+from sweeper.training.params import CELLS, TrialParams
+from sweeper.training.trial_run import (
     TrainingInterrupted,
     TrialRun,
     build_optimizer,

@@ -6,12 +6,12 @@ from pathlib import Path
 
 from optuna.trial import TrialState
 
-from sweeper.coordinator import Coordinator
-from sweeper.launcher import open_for_launch
-from sweeper.progress import ProgressDisplay
-from sweeper.spec import load_spec
-from sweeper.storage import backend_of
-from sweeper.unstarted import fail_unstarted_trials, grace_seconds
+from sweeper.spec.loading import load_spec
+from sweeper.store.connect import backend_of
+from sweeper.sweep.coordinator import Coordinator
+from sweeper.sweep.launcher import open_for_launch
+from sweeper.sweep.lost_claims import fail_unstarted_trials, grace_seconds
+from sweeper.sweep.progress import ProgressDisplay
 from tests.conftest import write_tiny_spec
 
 

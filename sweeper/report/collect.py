@@ -24,8 +24,10 @@ from optuna.distributions import (
 from optuna.trial import FrozenTrial
 
 from sweeper.errors import InputError, StorageFailure, StudyNotFound
-from sweeper.storage import open_storage, redact
-from sweeper.telemetry import EPOCH_FIELDS, EPOCHS, read_epochs
+from sweeper.store.connect import open_storage, redact
+from sweeper.store.epoch_rows import read_epochs
+from sweeper.store.tables import EPOCHS
+from sweeper.training.epoch_record import EPOCH_FIELDS
 
 STATES = ("COMPLETE", "PRUNED", "FAIL", "RUNNING", "WAITING")
 ParamKind = Literal["float", "int", "categorical"]

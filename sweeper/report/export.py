@@ -24,8 +24,8 @@ import sqlite_utils
 
 from sweeper.errors import InputError
 from sweeper.report.collect import ParamInfo, StudyTables, TrialRow, read_study
-from sweeper.storage import sqlite_path, storage_url
-from sweeper.telemetry import EPOCH_FIELDS
+from sweeper.store.connect import sqlite_path, storage_url
+from sweeper.training.epoch_record import EPOCH_FIELDS
 
 Format = Literal["csv", "json", "sqlite"]
 TRIAL_COLUMNS = (

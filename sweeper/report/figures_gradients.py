@@ -10,7 +10,7 @@ import plotly.graph_objects as go
 
 from sweeper.report.collect import StudyTables
 from sweeper.report.escape import label
-from sweeper.report.gradients import TrialGradients, exploding, vanishing
+from sweeper.report.gradient_findings import TrialGradients, exploding, vanishing
 from sweeper.report.ranking import leaders
 from sweeper.report.theme import (
     INK,

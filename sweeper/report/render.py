@@ -17,15 +17,16 @@ from sweeper.report.collect import StudyTables, read_study
 from sweeper.report.escape import esc, script_json
 from sweeper.report.html_parts import FigureBook, missing, section
 from sweeper.report.importance import REPLICATES, param_importance
-from sweeper.report.sections_analysis import (
+from sweeper.report.sections_choice import outcome_section, ranked_section
+from sweeper.report.sections_gradients import gradients_section
+from sweeper.report.sections_operations import failures_section, retries_section
+from sweeper.report.sections_search import (
     cost_section,
     curves_section,
     importance_section,
     response_section,
     timeline_section,
 )
-from sweeper.report.sections_health import failures_section, health_section, retries_section
-from sweeper.report.sections_outcome import outcome_section, ranked_section
 
 CONTENTS = (
     ("outcome", "Outcome"),
@@ -86,7 +87,7 @@ def render_page(tables: StudyTables, *, replicates: int = REPLICATES, seed: int 
         importance_section(tables, result, book),
         response_section(tables, result, book),
         curves_section(tables, book),
-        health_section(tables, book),
+        gradients_section(tables, book),
         cost_section(tables, book),
         timeline_section(tables, book),
         failures_section(tables),

@@ -1,0 +1,54 @@
+"""A study's status table for the terminal."""
+
+from __future__ import annotations
+
+import io
+
+from rich.console import Console
+from rich.table import Table
+
+from sweeper.sweep.progress import Snapshot, format_seconds
+
+
+def status_table(snap: Snapshot) -> str:
+    counts = snap.counts
+    summary = Table(title=f"study {snap.study_name}", show_header=True)
+    columns = ("budget", "complete", "stopped", "failed", "interrupted", "running", "waiting")
+    for column in (*columns, "best", "ETA"):
+        summary.add_column(column, justify="right")
+    best = "-" if snap.best_value is None else f"{snap.best_value:.5g} (trial {snap.best_trial})"
+    eta = "-" if snap.eta_seconds is None else format_seconds(snap.eta_seconds)
+    summary.add_row(
+        str(snap.budget),
+        str(counts.complete),
+        str(counts.pruned),
+        str(counts.failed),
+        str(counts.interrupted),
+        str(counts.running),
+        str(counts.waiting),
+        best,
+        eta,
+    )
+    buffer = io.StringIO()
+    console = Console(file=buffer, width=110, color_system=None)
+    console.print(summary)
+    if snap.running:
+        running = Table(title="running trials")
+        for column in ("trial", "epoch", "age", "worker"):
+            running.add_column(column)
+        for trial in snap.running:
+            running.add_row(
+                str(trial.number),
+                str(trial.epoch),
+                format_seconds(trial.age_seconds),
+                trial.worker,
+            )
+        console.print(running)
+    if snap.retries:
+        retries = Table(title="retries")
+        retries.add_column("trial")
+        retries.add_column("retries trial")
+        for number, original in snap.retries:
+            retries.add_row(str(number), str(original))
+        console.print(retries)
+    return buffer.getvalue().rstrip()

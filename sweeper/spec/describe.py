@@ -1,0 +1,50 @@
+"""A checked spec as plain text for the terminal: its task, baseline, space and budget."""
+
+from __future__ import annotations
+
+from sweeper.spec.checks import build_spec_task
+from sweeper.spec.sections import Spec, budget_of
+from sweeper.spec.space import Choices, Fixed, Range, SearchEntry
+
+
+def describe_entry(entry: SearchEntry) -> str:
+    if isinstance(entry, Fixed):
+        return f"fixed {entry.value!r}"
+    if isinstance(entry, Choices):
+        return "one of " + ", ".join(repr(v) for v in entry.values)
+    assert isinstance(entry, Range)
+    kind = "integer" if entry.integer else "real"
+    low, high = (int(entry.low), int(entry.high)) if entry.integer else (entry.low, entry.high)
+    scale = "log" if entry.log else "linear"
+    step = f" step {entry.step:g}" if entry.step else ""
+    return f"{kind} {low:g}..{high:g} ({scale}{step})"
+
+
+def describe_spec(spec: Spec) -> str:
+    study = spec.study
+    lines = [
+        f"{spec.source}: ok",
+        f"  study    {study.name}: {study.goal} {study.objective}, sampler {study.sampler}, "
+        f"seed {study.seed}, stopping rule {spec.stopping.rule}",
+    ]
+    if spec.is_objective_plugin:
+        lines.append(f"  task     objective plugin {spec.task['function']}")
+    else:
+        task = build_spec_task(spec)
+        baseline = task.baseline()
+        lines.append(f"  task     {task.describe()}")
+        lines.append(f"  baseline {baseline.measure} {baseline.value:.5g} ({baseline.description})")
+    lines.append("  search")
+    width = max((len(name) for name in spec.search), default=0)
+    for name, entry in spec.search.items():
+        lines.append(f"    {name:<{width}}  {describe_entry(entry)}")
+    if spec.training.defaults:
+        fixed = ", ".join(f"{k}={v!r}" for k, v in spec.training.defaults.items())
+        lines.append(f"  training {fixed}")
+    budget = budget_of(spec)
+    epochs = "" if spec.is_objective_plugin else f" x {spec.training.epochs} epochs"
+    lines.append(
+        f"  budget   {budget} trials{epochs} on {study.workers} worker(s); "
+        f"storage {spec.storage_location}"
+    )
+    return "\n".join(lines)

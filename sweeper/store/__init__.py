@@ -1,0 +1,1 @@
+"""What a study stores: connections, our tables, epoch rows, checkpoints, trial attributes."""

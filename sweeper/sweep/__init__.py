@@ -1,0 +1,1 @@
+"""Running many trials: the launcher, its coordinator and lease, workers, the pool, clusters."""

@@ -1,0 +1,110 @@
+"""The one process that queues a study's trials, fails stale ones and watches for failures."""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+import socket
+import time
+
+import optuna
+from optuna.storages import RetryHeartbeatStaleTrialCallback, fail_stale_trials
+from optuna.trial import TrialState
+
+from sweeper.errors import TooManyFailures
+from sweeper.spec.sections import Spec
+from sweeper.store import tables
+from sweeper.store.connect import backend_of, engine_of, redact, set_heartbeat
+from sweeper.sweep import lease
+from sweeper.sweep.lost_claims import fail_unstarted_trials, grace_seconds
+from sweeper.sweep.progress import ProgressDisplay, Snapshot, snapshot
+from sweeper.sweep.study import budget_of, request_stop, top_up
+
+STEP_SECONDS = 2.0  # a trial budget is queued at once; heartbeats are noticed in seconds
+QUICK_STEP_SECONDS = 0.5
+
+
+def _queue_short(snap: Snapshot, workers: int) -> bool:
+    """More trials are needed than are queued for the workers (a compute budget queues one
+    trial per worker at a time): a worker may be waiting for the next step."""
+    counts = snap.counts
+    unqueued = snap.budget - counts.finished - counts.running - counts.waiting
+    return counts.waiting < workers and unqueued > 0
+
+
+def stored_budget(study: optuna.Study, spec: Spec) -> Spec:
+    """The spec with the budget of the latest launch (another host may have raised it)."""
+    attrs = study._storage.get_study_user_attrs(study._study_id)
+    return spec.with_overrides(trials=attrs.get("budget"), workers=attrs.get("workers"))
+
+
+class Coordinator:
+    """Queue trials, fail stale ones (which queues their retries), watch for failures.
+
+    Only the holder of the study's lease acts; any other coordinator only watches, so that
+    launchers and joining workers on many hosts never queue trials at the same time.
+    """
+
+    def __init__(self, study: optuna.Study, spec: Spec, display: ProgressDisplay) -> None:
+        self.study = study
+        self.spec = spec
+        self.display = display
+        self.launched = dt.datetime.now()
+        self.queued = 0
+        self.holder = f"{socket.gethostname()}:{os.getpid()}:coordinator"
+        backend = backend_of(study)
+        set_heartbeat(backend, spec.study.heartbeat)
+        backend.heartbeat_stale_trial_callback = RetryHeartbeatStaleTrialCallback(
+            max_retry=spec.study.max_retries
+        )
+        tables.ensure_tables(engine_of(study))
+        self._due = 0.0  # when `step_when_due` steps next (time.monotonic)
+
+    def step(self) -> Snapshot:
+        self.spec = stored_budget(self.study, self.spec)
+        # the lease outlives a few heartbeats, so a dead holder is replaced about as fast as
+        # its dead trials are noticed
+        seconds = max(5.0, 3.0 * self.spec.study.heartbeat)
+        if lease.acquire(engine_of(self.study), self.study.study_name, self.holder, seconds):
+            fail_stale_trials(self.study)
+            fail_unstarted_trials(self.study, grace_seconds(self.spec.study.heartbeat))
+            self._check_failures()
+            self.queued += top_up(self.study, self.spec)
+        snap = snapshot(self.study, budget_of(self.spec), self.spec.study.workers)
+        self.display.update(snap)
+        pause = QUICK_STEP_SECONDS if _queue_short(snap, self.spec.study.workers) else STEP_SECONDS
+        self._due = time.monotonic() + pause
+        return snap
+
+    def step_when_due(self) -> None:
+        """``step``, at most every ``STEP_SECONDS`` while the queue holds enough trials.
+
+        Each step reads every trial and renews the lease: on a machine whose cores all train,
+        stepping twice a second took about 4% of a core from the workers.
+        """
+        if time.monotonic() >= self._due:
+            self.step()
+
+    def close(self) -> None:
+        lease.release(engine_of(self.study), self.study.study_name, self.holder)
+
+    def _check_failures(self) -> None:
+        limit = self.spec.study.max_failures
+        ended = [
+            t
+            for t in self.study.get_trials(deepcopy=False)
+            if t.datetime_complete is not None
+            and t.datetime_complete >= self.launched
+            and t.state in (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
+            and not (t.state == TrialState.FAIL and "failure" not in t.user_attrs)
+        ]
+        ended.sort(key=lambda t: (t.datetime_complete, t.number))
+        recent = ended[-limit:]
+        if len(recent) == limit and all(t.state == TrialState.FAIL for t in recent):
+            last = recent[-1].user_attrs["failure"]
+            reason = (
+                f"{limit} trials in a row failed; the last (trial {recent[-1].number}) raised "
+                f"{last['type']}: {last['message']}"
+            )
+            request_stop(self.study, reason)
+            raise TooManyFailures(redact(reason))

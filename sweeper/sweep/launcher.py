@@ -1,0 +1,260 @@
+"""The launching process: create or continue the study, queue trials, watch the workers."""
+
+from __future__ import annotations
+
+import os
+import socket
+import threading
+from dataclasses import dataclass, field
+
+import optuna
+
+from sweeper.errors import Interrupted, RunFailure, TooManyFailures
+from sweeper.seeds import derive_seed
+from sweeper.spec.checks import build_spec_task
+from sweeper.spec.sections import Spec
+from sweeper.store.connect import open_storage, redact, storage_url
+from sweeper.sweep.cluster import run_on_cluster
+from sweeper.sweep.coordinator import Coordinator
+from sweeper.sweep.pool import LocalPool, local_pool
+from sweeper.sweep.progress import ProgressDisplay, Snapshot, snapshot
+from sweeper.sweep.study import (
+    STOP_ATTR,
+    budget_of,
+    create_or_continue,
+    load_existing,
+    quiet_optuna,
+    request_stop,
+    spec_attrs,
+    stop_requested,
+)
+from sweeper.sweep.workers import (
+    default_threads,
+    drop_spent_checkpoints,
+    in_background,
+    install_stop_signals,
+    run_parallel,
+    work,
+)
+
+WATCH_SECONDS = 0.5
+STOP_WAIT_SECONDS = 8.0
+
+
+@dataclass
+class SweepResult:
+    study_name: str
+    location: str
+    snapshot: Snapshot
+    queued: int = 0
+    ran: int = 0
+    best_line: str = ""
+    report: str | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+def _task_attrs(spec: Spec) -> tuple[dict | None, str, str]:
+    if spec.is_objective_plugin:
+        return None, "objective", f"objective plugin {spec.task['function']}"
+    task = build_spec_task(spec)
+    baseline = task.baseline()
+    data = {
+        "value": baseline.value,
+        "measure": baseline.measure,
+        "description": baseline.description,
+    }
+    return data, task.name, task.describe()
+
+
+def open_for_launch(spec: Spec) -> optuna.Study:
+    """Create the study, or continue it when the spec matches the stored one."""
+    quiet_optuna()
+    baseline, task, description = _task_attrs(spec)
+    storage = open_storage(spec.storage_location)
+    attrs = spec_attrs(spec, baseline, task, description)
+    attrs["metric_name"] = (
+        "value" if spec.is_objective_plugin else build_spec_task(spec).metric_name
+    )
+    return create_or_continue(storage, spec, attrs)
+
+
+@dataclass(frozen=True)
+class Placement:
+    """Where the workers run: here (in-process or a local pool), or on a Dask cluster."""
+
+    workers: int
+    threads: int
+    cluster: str | None = None  # a Dask scheduler address
+    joined: bool = False  # a `sweeper worker` that joined a study launched elsewhere
+    pool: LocalPool | None = None  # the local processes of two or more workers
+
+
+def run_sweep(
+    spec: Spec,
+    display: ProgressDisplay | None = None,
+    cluster: str | None = None,
+    pool: LocalPool | None = None,
+) -> SweepResult:
+    """Run the spec's study to its budget with ``spec.study.workers`` workers.
+
+    The first SIGINT or SIGTERM asks every worker to stop at its next window boundary and
+    raises Interrupted once they have; a second one raises KeyboardInterrupt at once.
+    ``pool``: local worker processes the caller started earlier and closes
+    (``sweeper.sweep.pool.local_pool``); when none is given, this makes and closes its own.
+    """
+    if pool is not None or cluster:
+        return _run(spec, display, cluster, pool)
+    with local_pool(spec.study.workers) as own:
+        return _run(spec, display, cluster, own)
+
+
+def _run(
+    spec: Spec, display: ProgressDisplay | None, cluster: str | None, pool: LocalPool | None
+) -> SweepResult:
+    study = open_for_launch(spec)
+    threads = spec.training.threads or default_threads(spec.study.workers)
+    if cluster:  # the cluster's workers bring their own cores
+        threads = spec.training.threads or 1
+    placement = Placement(spec.study.workers, threads, cluster, pool=pool)
+    return _drive(study, spec, placement, display or ProgressDisplay())
+
+
+def queue_only(spec: Spec) -> SweepResult:
+    """Create or continue the study and queue its trials; start no worker here."""
+    study = open_for_launch(spec)
+    coordinator = Coordinator(study, spec, ProgressDisplay(interval=0))
+    try:
+        snap = coordinator.step()
+    finally:
+        coordinator.close()
+    return SweepResult(study.study_name, spec.storage_location, snap, coordinator.queued)
+
+
+def join_sweep(location: str, display: ProgressDisplay | None = None) -> SweepResult:
+    """Work on an existing study from this host until its budget is met (`sweeper worker`).
+
+    Needs no spec file: the spec, telemetry and checkpoints come from the database. A first
+    signal stops only this worker; its trial is continued by another worker or on resume.
+    """
+    quiet_optuna()
+    study, spec = load_existing(location)
+    study.set_user_attr(STOP_ATTR, None)  # joining means: work on it again, as resume does
+    threads = spec.training.threads or default_threads(1)
+    return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
+
+
+def _drive(
+    study: optuna.Study, spec: Spec, placement: Placement, display: ProgressDisplay
+) -> SweepResult:
+    coordinator = Coordinator(study, spec, display)
+    stop = threading.Event()
+    restore = install_stop_signals(stop)
+    try:
+        with display:
+            before = coordinator.step().counts
+            _watch(coordinator, spec, placement, stop)
+            final = snapshot(study, budget_of(coordinator.spec), coordinator.spec.study.workers)
+            display.final(final)
+    finally:
+        coordinator.close()
+        if restore is not None:
+            restore()
+    ran = final.counts.finished + final.counts.failed - before.finished - before.failed
+    return SweepResult(
+        study.study_name, spec.storage_location, final, coordinator.queued, ran, best_line(study)
+    )
+
+
+def best_line(study: optuna.Study) -> str:
+    """The best trial in one line: its value, the task's baseline and its parameters."""
+    try:
+        best = study.best_trial
+    except ValueError:
+        return ""
+    objective = study.user_attrs.get("objective", "value")
+    baseline = study.user_attrs.get("baseline") or {}
+    against = ""
+    if baseline.get("measure") == objective:
+        against = f" (baseline {baseline['value']:.5g})"
+    params = ", ".join(f"{name}={_short(value)}" for name, value in best.params.items())
+    return f"best trial {best.number}: {objective} {best.value:.5g}{against}; {params}"
+
+
+def _short(value: object) -> str:
+    return f"{value:.4g}" if isinstance(value, float) else str(value)
+
+
+def _start_workers(
+    spec: Spec,
+    placement: Placement,
+    stop: threading.Event,
+    finished: threading.Event,
+    errors: list[BaseException],
+) -> threading.Thread:
+    location, name = storage_url(spec.storage_location), spec.study.name
+    if placement.cluster:
+        return run_on_cluster(
+            placement.cluster,
+            location,
+            name,
+            placement.workers,
+            placement.threads,
+            finished.set,
+            errors,
+        )
+    if placement.pool is not None:
+        return run_parallel(location, name, placement.pool, placement.threads, finished.set, errors)
+    index = derive_seed(socket.gethostname(), os.getpid()) % 10_000 if placement.joined else 0
+
+    # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.
+    return in_background(
+        lambda: work(location, name, index, placement.threads, stop),
+        "sweeper-worker",
+        finished.set,
+        errors,
+    )
+
+
+def _watch(
+    coordinator: Coordinator, spec: Spec, placement: Placement, stop: threading.Event
+) -> None:
+    finished = threading.Event()
+    errors: list[BaseException] = []
+    thread = _start_workers(spec, placement, stop, finished, errors)
+    try:
+        while not finished.wait(WATCH_SECONDS):
+            if stop_requested(coordinator.study) is not None:
+                stop.set()  # relayed to the in-process worker (set here or by another host)
+            if stop.is_set():
+                _stop_workers(coordinator, finished, placement.joined)
+            coordinator.step_when_due()
+    except TooManyFailures:
+        finished.wait(60)
+        raise
+    thread.join(timeout=5)
+    if stop.is_set():
+        _stop_workers(coordinator, finished, placement.joined)
+    if errors:
+        error = errors[0]
+        if isinstance(error, RunFailure):
+            raise error
+        raise RunFailure(f"a worker stopped: {type(error).__name__}: {redact(str(error))}")
+    coordinator.step()
+    drop_spent_checkpoints(coordinator.study, coordinator.spec)
+
+
+def _stop_workers(coordinator: Coordinator, finished: threading.Event, joined: bool) -> None:
+    """Ask the workers to stop, wait for them briefly, then leave with exit code 130."""
+    location = redact(coordinator.spec.storage_location)
+    if joined:  # only this worker stops; the study goes on elsewhere
+        finished.wait(STOP_WAIT_SECONDS)
+        raise Interrupted(
+            "interrupted; this worker's trial will be continued by another worker, or with: "
+            f"sweeper resume {location}"
+        )
+    request_stop(coordinator.study, "interrupted")
+    finished.wait(STOP_WAIT_SECONDS)
+    raise Interrupted(
+        f"interrupted; the study keeps its trials and checkpoints. "
+        f"Continue with: sweeper resume {location}"
+    )

@@ -1,0 +1,174 @@
+"""What a study looks like right now: counts, best so far, running trials, ETA; and its display."""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import sys
+import time
+from dataclasses import dataclass
+from typing import IO, Any
+
+import optuna
+from optuna.trial import FrozenTrial, TrialState
+
+from sweeper.sweep.study import Tally, tally
+
+
+@dataclass(frozen=True)
+class RunningTrial:
+    number: int
+    epoch: int
+    age_seconds: float
+    worker: str
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    study_name: str
+    budget: int
+    counts: Tally
+    best_value: float | None
+    best_trial: int | None
+    running: tuple[RunningTrial, ...]
+    eta_seconds: float | None
+    retries: tuple[tuple[int, int], ...]  # (retry trial, original trial)
+
+    def line(self) -> str:
+        c = self.counts
+        best = "-" if self.best_value is None else f"{self.best_value:.5g} (#{self.best_trial})"
+        eta = "-" if self.eta_seconds is None else format_seconds(self.eta_seconds)
+        interrupted = f", {c.interrupted} interrupted" if c.interrupted else ""
+        return (
+            f"{self.study_name}: {c.finished}/{self.budget} finished "
+            f"({c.complete} complete, {c.pruned} stopped), {c.running} running, "
+            f"{c.failed} failed{interrupted}; best {best}; ETA {eta}"
+        )
+
+
+def format_seconds(seconds: float) -> str:
+    seconds = max(0, round(seconds))
+    hours, rest = divmod(seconds, 3600)
+    minutes, secs = divmod(rest, 60)
+    return f"{hours}h{minutes:02d}m" if hours else f"{minutes}m{secs:02d}s"
+
+
+def _age(trial: FrozenTrial, now: dt.datetime) -> float:
+    if trial.datetime_start is None:
+        return 0.0
+    return max(0.0, (now - trial.datetime_start).total_seconds())
+
+
+def _eta(trials: list[FrozenTrial], counts: Tally, budget: int, workers: int) -> float | None:
+    durations = [
+        (t.datetime_complete - t.datetime_start).total_seconds()
+        for t in trials
+        if t.state in (TrialState.COMPLETE, TrialState.PRUNED)
+        and t.datetime_start is not None
+        and t.datetime_complete is not None
+    ]
+    remaining = max(0, budget - counts.finished)
+    if remaining == 0:
+        return 0.0
+    if not durations:
+        return None
+    mean = sum(durations) / len(durations)
+    waves = math.ceil(remaining / max(1, workers))
+    return waves * mean
+
+
+def snapshot(study: optuna.Study, budget: int, workers: int) -> Snapshot:
+    trials = study.get_trials(deepcopy=False)
+    counts = tally(trials)
+    complete = [t for t in trials if t.state == TrialState.COMPLETE and t.value is not None]
+    best = None
+    if complete:
+        pick = min if study.direction == optuna.study.StudyDirection.MINIMIZE else max
+        best = pick(complete, key=lambda t: float(t.value or 0.0))
+    now = dt.datetime.now()
+    running = tuple(
+        RunningTrial(
+            t.number,
+            max(t.intermediate_values, default=int(t.user_attrs.get("epochs", 0))),
+            _age(t, now),
+            str(t.user_attrs.get("worker", "")),
+        )
+        for t in trials
+        if t.state == TrialState.RUNNING
+    )
+    retries = tuple(
+        (t.number, int(t.system_attrs["failed_trial"]))
+        for t in trials
+        if "failed_trial" in t.system_attrs
+    )
+    return Snapshot(
+        study_name=study.study_name,
+        budget=budget,
+        counts=counts,
+        best_value=None if best is None else float(best.value),  # type: ignore[arg-type]
+        best_trial=None if best is None else best.number,
+        running=running,
+        eta_seconds=_eta(trials, counts, budget, workers),
+        retries=retries,
+    )
+
+
+class ProgressDisplay:
+    """A live bar on a terminal; a plain log line every ``interval`` seconds elsewhere."""
+
+    def __init__(self, stream: IO[str] | None = None, interval: float = 10.0) -> None:
+        self.stream = stream or sys.stderr
+        self.interval = interval
+        self.live = self.stream.isatty()
+        self._last_line = ""
+        self._last_time = 0.0
+        self._bar: Any = None
+        self._task: Any = None
+
+    def __enter__(self) -> ProgressDisplay:
+        if self.live:
+            from rich.console import Console
+            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+            self._bar = Progress(
+                TextColumn("[bold]{task.description}"),
+                BarColumn(),
+                MofNCompleteColumn(),
+                TextColumn("{task.fields[detail]}"),
+                console=Console(file=self.stream),
+                transient=False,
+            )
+            self._bar.start()
+            self._task = self._bar.add_task("trials", total=1, detail="")
+        return self
+
+    def update(self, snap: Snapshot) -> None:
+        if self._bar is not None and self._task is not None:
+            c = snap.counts
+            best = "-" if snap.best_value is None else f"{snap.best_value:.5g}"
+            eta = "-" if snap.eta_seconds is None else format_seconds(snap.eta_seconds)
+            detail = (
+                f"running {c.running} | stopped {c.pruned} | failed {c.failed} | "
+                f"best {best} | ETA {eta}"
+            )
+            self._bar.update(self._task, total=snap.budget, completed=c.finished, detail=detail)
+            return
+        line = snap.line()
+        now = time.monotonic()
+        if (
+            line != self._last_line and now - self._last_time >= self.interval
+        ) or not self._last_line:
+            print(line, file=self.stream, flush=True)
+            self._last_line, self._last_time = line, now
+
+    def final(self, snap: Snapshot) -> None:
+        if self._bar is not None:
+            self.update(snap)
+            return
+        if snap.line() != self._last_line:
+            print(snap.line(), file=self.stream, flush=True)
+            self._last_line = snap.line()
+
+    def __exit__(self, *exc: object) -> None:
+        if self._bar is not None:
+            self._bar.stop()

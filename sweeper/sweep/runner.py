@@ -1,0 +1,173 @@
+"""One optuna trial end to end: draw parameters, train (or call the plugin), record, report."""
+
+from __future__ import annotations
+
+import math
+import os
+import socket
+import traceback
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import optuna
+import sqlalchemy as sa
+import torch
+
+from sweeper.seeds import trial_seed
+from sweeper.spec.sections import Spec
+from sweeper.spec.space import draw
+from sweeper.store import checkpoints, epoch_rows
+from sweeper.tasks.base import Task
+from sweeper.training.epoch_record import EpochRecord
+from sweeper.training.model_plugin import model_builder
+from sweeper.training.params import TrialParams
+from sweeper.training.trial_run import TrialRun, divergence_reason
+
+Objective = Callable[[dict[str, Any], Callable[[int, float], None]], float]
+TRACEBACK_LINES = 12
+
+
+def worker_name(index: int) -> str:
+    return f"{socket.gethostname()}:{os.getpid()}:w{index}"
+
+
+@dataclass
+class TrialContext:
+    """What every trial of one worker shares."""
+
+    spec: Spec
+    engine: sa.Engine
+    study_name: str
+    worker: str
+    task: Task | None = None
+    objective: Objective | None = None
+    should_stop: Callable[[], bool] = field(default=lambda: False)
+
+
+def origin_of(trial: optuna.trial.FrozenTrial) -> int:
+    """The trial this one retries or continues (its seed and checkpoint), or its own number."""
+    original = trial.system_attrs.get("failed_trial")
+    return int(original) if original is not None else trial.number
+
+
+def origin_number(trial: optuna.Trial) -> int:
+    """``origin_of`` for a live trial."""
+    return origin_of(trial.storage.get_trial(trial._trial_id))
+
+
+def objective_value(spec: Spec, record: EpochRecord) -> float:
+    return record.valid_metric if spec.study.objective == "valid_metric" else record.valid_loss
+
+
+def worst_value(spec: Spec) -> float:
+    return math.inf if spec.study.goal == "minimize" else -math.inf
+
+
+def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:
+    """Run one trial; raise optuna.TrialPruned when stopped early or diverged."""
+    params = draw(trial, ctx.spec.search)
+    origin = origin_number(trial)
+    if origin != trial.number:
+        trial.set_user_attr("retry_of", origin)
+    seed = trial_seed(ctx.spec.study.seed, origin)
+    trial.set_user_attr("seed", seed)
+    trial.set_user_attr("worker", ctx.worker)
+    if ctx.spec.is_objective_plugin:
+        return _run_objective(trial, ctx, params)
+    return _run_training(trial, ctx, params, seed, origin)
+
+
+def _continue_from_checkpoint(
+    trial: optuna.Trial, ctx: TrialContext, run: TrialRun, origin: int
+) -> None:
+    """Load the origin trial's latest state and replay its recorded epochs into this trial."""
+    state = checkpoints.load(ctx.engine, ctx.study_name, origin)
+    if state is None:
+        return
+    run.load_state_dict(state)
+    for record in run.records:
+        epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
+        trial.report(objective_value(ctx.spec, record), record.epoch)
+    trial.set_user_attr("resumed_from_epoch", run.epoch)
+    # A retry inherits its original's attributes, which lag when the worker died between
+    # saving a checkpoint and recording its epoch; with no epoch left to run, nothing else
+    # would correct them.
+    trial.set_user_attr("epochs", run.epoch)
+    trial.set_user_attr("compute_seconds", sum(record.seconds for record in run.records))
+
+
+def _run_training(
+    trial: optuna.Trial, ctx: TrialContext, params: dict, seed: int, origin: int
+) -> float:
+    assert ctx.task is not None, "a training trial needs its task"
+    training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
+    trial.set_user_attr("training", training.as_dict())
+    trial.set_user_attr("threads", torch.get_num_threads())  # replay needs the same count
+    build = model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
+    run = TrialRun(ctx.task, training, seed, build)
+    _continue_from_checkpoint(trial, ctx, run, origin)
+    compute = sum(record.seconds for record in run.records)
+    value = objective_value(ctx.spec, run.records[-1]) if run.records else math.nan
+    for epoch in range(run.epoch + 1, ctx.spec.training.epochs + 1):
+        # train one epoch, then record it and save the state before anything can stop the trial
+        record = run.run_epoch(ctx.should_stop)
+        epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
+        checkpoints.save(ctx.engine, ctx.study_name, origin, epoch, run.state_dict())
+        compute += record.seconds
+        trial.set_user_attr("epochs", epoch)
+        trial.set_user_attr("compute_seconds", compute)
+        # diverged: the sampler must learn that this region is bad
+        reason = divergence_reason(record)
+        if reason is not None:
+            trial.set_user_attr("diverged", True)
+            trial.set_user_attr("end_reason", reason)
+            trial.report(worst_value(ctx.spec), epoch)
+            trial.should_prune()  # the stopping rule records it too (ASHA ranks it in its rung)
+            raise optuna.TrialPruned(reason)
+        value = objective_value(ctx.spec, record)
+        trial.report(value, epoch)
+        if _may_stop(ctx.spec, epoch) and trial.should_prune():
+            reason = f"stopped early after epoch {epoch}"
+            trial.set_user_attr("end_reason", reason)
+            raise optuna.TrialPruned(reason)
+    trial.set_user_attr("end_reason", "completed")
+    return value
+
+
+def _may_stop(spec: Spec, epoch: int) -> bool:
+    """Whether the stopping rule can decide now (asking optuna costs a few milliseconds)."""
+    rule = spec.stopping
+    stops = rule.rule != "none" or rule.patience > 0  # patience alone can stop a trial
+    return stops and rule.min_epochs <= epoch < spec.training.epochs
+
+
+def _plugin_record(epoch: int, value: float) -> EpochRecord:
+    nan = math.nan
+    return EpochRecord(epoch, nan, value, nan, nan, nan, nan, nan, nan, 0, 0, nan, nan)
+
+
+def _run_objective(trial: optuna.Trial, ctx: TrialContext, params: dict) -> float:
+    assert ctx.objective is not None, "an objective-plugin trial needs its function"
+
+    def report(epoch: int, value: float) -> None:
+        epoch_rows.write_epoch(
+            ctx.engine, ctx.study_name, trial.number, _plugin_record(epoch, value)
+        )
+        trial.set_user_attr("epochs", epoch)
+        trial.report(float(value), epoch)
+        if trial.should_prune():
+            reason = f"stopped early after step {epoch}"
+            trial.set_user_attr("end_reason", reason)
+            raise optuna.TrialPruned(reason)
+
+    value = float(ctx.objective(dict(params), report))
+    trial.set_user_attr("end_reason", "completed")
+    return value
+
+
+def failure_attrs(error: BaseException) -> dict[str, str]:
+    """Type, message and the last lines of the traceback of a failed trial."""
+    lines = traceback.format_exception(type(error), error, error.__traceback__)
+    excerpt = "".join(lines).splitlines()[-TRACEBACK_LINES:]
+    return {"type": type(error).__name__, "message": str(error), "traceback": "\n".join(excerpt)}

@@ -1,0 +1,358 @@
+"""Open, create or continue a study on a storage URL; sampler, pruner and the trial queue."""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+from collections import Counter
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import optuna
+from optuna.trial import FrozenTrial, TrialState
+
+from sweeper.errors import SpecChanged, StudyNotFound
+from sweeper.seeds import sampler_seed
+from sweeper.spec.loading import parse_spec
+from sweeper.spec.sections import MUTABLE_KEYS, Spec, budget_of
+from sweeper.spec.space import grid_points
+from sweeper.store import tables
+from sweeper.store.connect import open_storage, redact
+
+FINISHED = (TrialState.COMPLETE, TrialState.PRUNED)
+STOP_ATTR = "stop_request"
+# Random trials before TPE models the results. Early stopping makes them cheap but also
+# makes sweeps short; optuna's 10 left TPE idle for most of a typical budget (measured in
+# benchmarks/search_efficiency.py).
+TPE_STARTUP_TRIALS = 5
+
+
+def quiet_optuna() -> None:
+    """optuna logs every trial and warns about its experimental features; we report ourselves."""
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+
+
+def make_sampler(
+    spec: Spec, worker_index: int, trials_in_study: int
+) -> optuna.samplers.BaseSampler:
+    seed = sampler_seed(spec.study.seed, worker_index, trials_in_study)
+    name = spec.study.sampler
+    if name == "tpe":
+        # Constant liar keeps parallel workers from piling onto the same promising point.
+        return optuna.samplers.TPESampler(
+            seed=seed, multivariate=True, constant_liar=True, n_startup_trials=TPE_STARTUP_TRIALS
+        )
+    if name == "sobol":
+        # One shared seed: the sequence is indexed by trial number, so workers never collide.
+        return optuna.samplers.QMCSampler(qmc_type="sobol", scramble=True, seed=spec.study.seed)
+    if name == "cmaes":
+        # Stopped trials hold information too: without them CMA-ES waits for whole generations
+        # of trials that ran to the end.
+        return optuna.samplers.CmaEsSampler(seed=seed, consider_pruned_trials=True)
+    # "random", and "grid", whose points arrive fully fixed through the queue.
+    return optuna.samplers.RandomSampler(seed=seed)
+
+
+def make_pruner(spec: Spec) -> optuna.pruners.BasePruner:
+    rule = _rule_pruner(spec)
+    patience = spec.stopping.patience
+    if patience == 0:
+        return rule or optuna.pruners.NopPruner()
+    # A rule may stop a trial only after `patience` epochs without improvement; with no rule,
+    # that alone stops it.
+    return optuna.pruners.PatientPruner(rule, patience=patience)
+
+
+def _rule_pruner(spec: Spec) -> optuna.pruners.BasePruner | None:
+    rule = spec.stopping
+    if rule.rule == "median":
+        return optuna.pruners.MedianPruner(
+            n_startup_trials=rule.warmup_trials, n_warmup_steps=rule.min_epochs
+        )
+    if rule.rule == "asha":
+        return optuna.pruners.SuccessiveHalvingPruner(
+            min_resource=rule.min_epochs, reduction_factor=rule.reduction
+        )
+    if rule.rule == "hyperband":
+        # an objective plugin reports steps of its own: learn the longest from finished trials
+        longest = "auto" if spec.is_objective_plugin else spec.training.epochs
+        return optuna.pruners.HyperbandPruner(
+            min_resource=rule.min_epochs, max_resource=longest, reduction_factor=rule.reduction
+        )
+    return None
+
+
+def spec_attrs(spec: Spec, baseline: dict[str, Any] | None, task: str, description: str) -> dict:
+    return {
+        "spec_text": spec.text,
+        "spec_source": str(Path(spec.source).resolve()) if spec.source else "",
+        "spec_hash": spec.digest(),
+        "spec_data": json.dumps(spec.canonical(), sort_keys=True, default=str),
+        "task": task,
+        "task_description": description,
+        "baseline": baseline,
+        "objective": "value" if spec.is_objective_plugin else spec.study.objective,
+        "budget": spec.study.trials,
+        "workers": spec.study.workers,
+    }
+
+
+def changed_keys(old: dict[str, Any], new: dict[str, Any], prefix: str = "") -> list[str]:
+    keys: list[str] = []
+    for key in sorted(set(old) | set(new)):
+        dotted = f"{prefix}{key}"
+        a, b = old.get(key), new.get(key)
+        if isinstance(a, dict) and isinstance(b, dict):
+            keys += changed_keys(a, b, f"{dotted}.")
+        elif a != b:
+            keys.append(dotted)
+    return keys
+
+
+def create_or_continue(
+    storage: optuna.storages.RDBStorage, spec: Spec, attrs: dict
+) -> optuna.Study:
+    """The study named in the spec; a different spec under the same name is refused."""
+    names = set(optuna.get_all_study_names(storage))
+    direction = optuna.study.StudyDirection.MINIMIZE
+    if spec.study.goal == "maximize":
+        direction = optuna.study.StudyDirection.MAXIMIZE
+    study = optuna.create_study(
+        storage=storage, study_name=spec.study.name, direction=direction, load_if_exists=True
+    )
+    if spec.study.name in names:
+        _refuse_changed_spec(study, spec)
+    tables.ensure_tables(storage.engine)
+    for key, value in attrs.items():
+        study.set_user_attr(key, value)
+    study.set_user_attr(STOP_ATTR, None)
+    return study
+
+
+def _refuse_changed_spec(study: optuna.Study, spec: Spec) -> None:
+    stored = study.user_attrs.get("spec_hash")
+    if stored is None or stored == spec.digest():
+        return
+    old = json.loads(study.user_attrs.get("spec_data", "{}"))
+    new = json.loads(json.dumps(spec.canonical(), sort_keys=True, default=str))
+    changed = [k for k in changed_keys(old, new) if k not in MUTABLE_KEYS]
+    raise SpecChanged(
+        f"{spec.source}: the study '{spec.study.name}' was started with a different spec "
+        f"(changed: {', '.join(changed) or 'unknown'}); undo the change or rename the study"
+    )
+
+
+def load_existing(location: str, study_name: str | None = None) -> tuple[optuna.Study, Spec]:
+    """An existing study and the spec stored inside it (for resume, status, report, worker)."""
+    storage = open_storage(location, create=False)
+    names = list(optuna.get_all_study_names(storage))
+    if study_name is None:
+        if len(names) != 1:
+            found = ", ".join(names) or "none"
+            raise StudyNotFound(f"{redact(location)}: expected one study, found {found}")
+        study_name = names[0]
+    if study_name not in names:
+        raise StudyNotFound(f"{redact(location)}: no study named '{study_name}'")
+    study = optuna.load_study(study_name=study_name, storage=storage)
+    text = study.user_attrs.get("spec_text")
+    if not isinstance(text, str):
+        raise StudyNotFound(f"{redact(location)}: '{study_name}' was not made by sweeper")
+    spec = parse_spec(text, study.user_attrs.get("spec_source", "") or "<stored spec>")
+    # the budget and worker count of the latest launch, which may differ from the file's
+    stored = study.user_attrs
+    spec = spec.with_overrides(
+        trials=stored.get("budget"), workers=stored.get("workers"), storage=location
+    )
+    return study, spec
+
+
+@dataclass(frozen=True)
+class Tally:
+    """Trials of a study by state, as the budget sees them."""
+
+    complete: int
+    pruned: int
+    failed: int
+    running: int
+    waiting: int
+    interrupted: int = 0  # stopped by a signal; continued by the next launch
+
+    @property
+    def finished(self) -> int:
+        return self.complete + self.pruned
+
+
+def tally(trials: list[FrozenTrial]) -> Tally:
+    counts = Counter(trial.state for trial in trials)
+    interrupted = sum(
+        1 for t in trials if t.state == TrialState.FAIL and t.user_attrs.get("interrupted")
+    )
+    return Tally(
+        complete=counts[TrialState.COMPLETE],
+        pruned=counts[TrialState.PRUNED],
+        failed=counts[TrialState.FAIL] - interrupted,
+        running=counts[TrialState.RUNNING],
+        waiting=counts[TrialState.WAITING],
+        interrupted=interrupted,
+    )
+
+
+def over_budget(trials: list[FrozenTrial], trial_number: int, budget: int) -> bool:
+    """Whether a just-claimed trial would exceed the budget.
+
+    Counts the finished trials and the running ones claimed before it (lower numbers), so
+    that every worker agrees on which claim is the surplus one.
+    """
+    ahead = sum(
+        1
+        for t in trials
+        if t.state in FINISHED or (t.state == TrialState.RUNNING and t.number < trial_number)
+    )
+    return ahead >= budget
+
+
+def compute_seconds(trial: FrozenTrial) -> float:
+    value = trial.user_attrs.get("compute_seconds")
+    return float(value) if isinstance(value, int | float) else 0.0
+
+
+@dataclass(frozen=True)
+class ComputeUse:
+    """Compute seconds of a study's trials as the compute budget sees them.
+
+    Finished and running trials count; failed ones do not (a retry or a continuation carries
+    the compute of the trial it stands for, so counting both would count it twice).
+    """
+
+    spent: float  # finished trials, and running ones so far
+    committed: float  # as spent, with each running trial at least at the expected cost
+    expected: float | None  # the next trial's cost: the mean of the finished trials
+
+
+def compute_use(trials: list[FrozenTrial], before: int | None = None) -> ComputeUse:
+    """``before``: count only the running trials claimed before that trial number."""
+    done = [compute_seconds(t) for t in trials if t.state in FINISHED]
+    running = [
+        compute_seconds(t)
+        for t in trials
+        if t.state == TrialState.RUNNING and (before is None or t.number < before)
+    ]
+    expected = sum(done) / len(done) if done else None
+    floor = expected or 0.0
+    committed = sum(done) + sum(max(seconds, floor) for seconds in running)
+    return ComputeUse(sum(done) + sum(running), committed, expected)
+
+
+def compute_room(trials: list[FrozenTrial], spec: Spec, before: int | None = None) -> int | None:
+    """How many more trials the compute budget allows (None: it sets no limit).
+
+    A trial is launched only if its expected cost still fits. Before any trial has finished
+    there is no estimate: then one trial per worker, while the budget is not yet spent.
+    """
+    if spec.study.compute_hours <= 0:
+        return None
+    limit = spec.study.compute_hours * 3600
+    use = compute_use(trials, before)
+    if not use.expected:
+        return spec.study.workers if use.spent < limit else 0
+    return max(0, math.floor((limit - use.committed) / use.expected))
+
+
+def budget_met(trials: list[FrozenTrial], spec: Spec) -> bool:
+    """Whether a worker may stop: the trials are finished or no further trial fits."""
+    return tally(trials).finished >= budget_of(spec) or compute_room(trials, spec) == 0
+
+
+def claim_exceeds_budget(trials: list[FrozenTrial], trial_number: int, spec: Spec) -> bool:
+    """Whether a just-claimed trial exceeds the trial budget or the compute budget."""
+    if over_budget(trials, trial_number, budget_of(spec)):
+        return True
+    return compute_room(trials, spec, before=trial_number) == 0
+
+
+def top_up(study: optuna.Study, spec: Spec) -> int:
+    """Queue as many trials as the budget still needs; only the launching process calls this.
+
+    Budget = finished (complete + pruned) + running + waiting; failed trials do not count, so a
+    failure is replaced. Under a compute budget at most one trial per worker waits or runs, so
+    each launch decision uses the latest cost estimate. Returns the number queued.
+    """
+    requeue_interrupted(study)
+    trials = study.get_trials(deepcopy=False)
+    now = tally(trials)
+    need = budget_of(spec) - now.finished - now.running - now.waiting
+    room = compute_room(trials, spec)
+    if room is not None:
+        need = min(need, room - now.waiting, spec.study.workers - now.running - now.waiting)
+    if need <= 0:
+        return 0
+    if spec.study.sampler == "grid":
+        return _queue_grid_points(study, spec, trials, need)
+    for _ in range(need):
+        study.enqueue_trial({})
+    return need
+
+
+def _queue_grid_points(
+    study: optuna.Study, spec: Spec, trials: list[FrozenTrial], need: int
+) -> int:
+    def key(params: dict[str, Any]) -> str:
+        return json.dumps(params, sort_keys=True, default=str)
+
+    taken = {
+        key(trial.system_attrs.get("fixed_params") or trial.params)
+        for trial in trials
+        if trial.state != TrialState.FAIL
+    }
+    queued = 0
+    for point in grid_points(spec.search) or []:
+        if queued == need:
+            break
+        if key(point) not in taken:
+            study.enqueue_trial(point)
+            queued += 1
+    return queued
+
+
+def request_stop(study: optuna.Study, reason: str) -> None:
+    study.set_user_attr(STOP_ATTR, reason)
+
+
+def stop_requested(study: optuna.Study) -> str | None:
+    reason = study._storage.get_study_user_attrs(study._study_id).get(STOP_ATTR)
+    return reason if isinstance(reason, str) else None
+
+
+def requeue_interrupted(study: optuna.Study) -> int:
+    """Queue again, with the same parameters, every trial a stop interrupted.
+
+    The new trial records which trial it continues in the same system attributes optuna's
+    heartbeat retry uses, so it loads that trial's checkpoint. Each continuation lengthens
+    the retry history that ``study.max_retries`` is checked against.
+    """
+    trials = study.get_trials(deepcopy=False)
+    continued = {number for t in trials for number in t.system_attrs.get("retry_history", [])}
+    queued = 0
+    for trial in trials:
+        if trial.state != TrialState.FAIL or not trial.user_attrs.get("interrupted"):
+            continue
+        if trial.number in continued:
+            continue
+        history = [*trial.system_attrs.get("retry_history", []), trial.number]
+        study.add_trial(
+            optuna.create_trial(
+                state=TrialState.WAITING,
+                params=trial.params,
+                distributions=trial.distributions,
+                system_attrs={
+                    "failed_trial": trial.system_attrs.get("failed_trial", trial.number),
+                    "retry_history": history,
+                    "continues_interrupted": trial.number,
+                },
+            )
+        )
+        queued += 1
+    return queued

@@ -1,0 +1,357 @@
+"""Worker processes: each opens its own storage, claims queued trials and runs them."""
+
+from __future__ import annotations
+
+import math
+import os
+import signal
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import optuna
+import torch
+from optuna.storages._heartbeat import get_heartbeat_thread
+from optuna.trial import TrialState
+
+from sweeper.spec.checks import build_spec_task
+from sweeper.spec.sections import Spec
+from sweeper.store import checkpoints
+from sweeper.store.connect import backend_of, engine_of, redact, retry_locked, set_heartbeat
+from sweeper.sweep.pool import LocalPool, collector_paused
+from sweeper.sweep.runner import (
+    TrialContext,
+    failure_attrs,
+    origin_number,
+    origin_of,
+    run_trial,
+    worker_name,
+)
+from sweeper.sweep.study import (
+    budget_met,
+    budget_of,
+    claim_exceeds_budget,
+    load_existing,
+    make_pruner,
+    make_sampler,
+    quiet_optuna,
+    stop_requested,
+    tally,
+)
+from sweeper.tasks.objective import load_objective
+from sweeper.training.trial_run import TrainingInterrupted
+
+IDLE_POLL_SECONDS = 0.1  # a poll takes about 1.5 ms; the last trial's end is seen sooner
+IDLE_GIVE_UP_SECONDS = 120.0
+STOP_POLL_SECONDS = 1.0
+MAX_POOL_RESTARTS = 5
+
+
+def default_threads(workers: int) -> int:
+    """torch threads per worker: the cores shared out, at least one."""
+    return max(1, (os.cpu_count() or 1) // max(1, workers))
+
+
+@dataclass(frozen=True)
+class WorkerSummary:
+    worker: str
+    trials: int
+
+
+def load_trial_machinery() -> None:
+    """Load what every trial needs beyond the imports, so that the first one starts at once.
+
+    torch loads torch._dynamo (about 1 s) when it builds its first optimizer, and optuna loads
+    alembic (about 0.3 s) when it opens its first storage; throwaway ones pay for that here
+    rather than inside the first trial's time.
+    """
+    with collector_paused():
+        torch.optim.Adam([torch.zeros(1, requires_grad=True)])
+        optuna.storages.RDBStorage("sqlite://").engine.dispose()  # in memory: nothing to share
+
+
+def work(
+    location: str,
+    study_name: str,
+    worker_index: int,
+    threads: int,
+    stop_event: threading.Event | None = None,
+    own_signals: bool = False,
+    watch_requests: bool | None = None,
+) -> WorkerSummary:
+    """Claim and run queued trials until the budget is met or a stop is requested.
+
+    Runs in a fresh process (or in the launcher for one worker); it opens its own storage after
+    it starts, so no database connection ever crosses a fork. ``own_signals``: this process
+    is a worker of its own, so its first Ctrl-C or SIGTERM stops at the next window boundary.
+    ``watch_requests`` (default: ``own_signals``): poll the study for a stop request; in the
+    launcher's own process its coordinator relays them instead.
+    """
+    # before any tensor work: thread pools are sized on first use
+    previous = torch.get_num_threads()
+    torch.set_num_threads(threads)
+    load_trial_machinery()  # done already, and at once, in a warm pool's process
+    stop_event = stop_event or threading.Event()
+    restore = install_stop_signals(stop_event) if own_signals else None
+    try:
+        watch = own_signals if watch_requests is None else watch_requests
+        return _work(location, study_name, worker_index, stop_event, watch)
+    finally:
+        torch.set_num_threads(previous)
+        if restore is not None:
+            restore()
+
+
+def install_stop_signals(stop_event: threading.Event) -> Callable[[], None] | None:
+    """First SIGINT/SIGTERM sets ``stop_event``; the second one stops at once."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+
+    def handler(signum: int, _frame: object) -> None:
+        if stop_event.is_set():
+            raise KeyboardInterrupt
+        stop_event.set()
+
+    previous = {sig: signal.signal(sig, handler) for sig in (signal.SIGINT, signal.SIGTERM)}
+
+    def restore() -> None:
+        for sig, old in previous.items():
+            signal.signal(sig, old)
+
+    return restore
+
+
+def _watch_stop_requests(
+    study: optuna.Study, stop_event: threading.Event, done: threading.Event
+) -> None:
+    """Turn a stop request stored in the study (by the launcher) into ``stop_event``."""
+
+    def poll() -> None:
+        while not done.wait(STOP_POLL_SECONDS):
+            try:
+                if stop_requested(study) is not None:
+                    stop_event.set()
+            except Exception:  # a storage hiccup must not kill the watcher
+                continue
+
+    threading.Thread(target=poll, name="sweeper-stop-watch", daemon=True).start()
+
+
+def _work(
+    location: str,
+    study_name: str,
+    worker_index: int,
+    stop_event: threading.Event,
+    watch_requests: bool,
+) -> WorkerSummary:
+    quiet_optuna()
+    study, spec = load_existing(location, study_name)
+    set_heartbeat(backend_of(study), spec.study.heartbeat)
+    study.sampler = make_sampler(spec, worker_index, len(study.get_trials(deepcopy=False)))
+    study.pruner = make_pruner(spec)
+    context = _context(study, spec, worker_index, stop_event)
+    done_event = threading.Event()
+    if watch_requests:  # in the launcher's process, its coordinator relays stop requests
+        _watch_stop_requests(study, stop_event, done_event)
+    done = 0
+    idle_since = time.monotonic()
+    while not stop_event.is_set() and stop_requested(study) is None:
+        trial_id = retry_locked(study._pop_waiting_trial_id)
+        if trial_id is None:
+            trials = study.get_trials(deepcopy=False)
+            waited = time.monotonic() - idle_since
+            if budget_met(trials, spec) or (
+                waited > IDLE_GIVE_UP_SECONDS and not tally(trials).running
+            ):
+                break
+            time.sleep(IDLE_POLL_SECONDS)
+            continue
+        if _give_back_if_surplus(study, spec, trial_id):
+            if budget_met(study.get_trials(deepcopy=False), spec):
+                break
+            time.sleep(IDLE_POLL_SECONDS)
+            continue
+        run_claimed(study, trial_id, context)
+        done += 1
+        idle_since = time.monotonic()
+    done_event.set()  # ends the watcher thread
+    return WorkerSummary(context.worker, done)
+
+
+def _give_back_if_surplus(study: optuna.Study, spec: Spec, trial_id: int) -> bool:
+    """Return a claimed trial to the queue when the budget is already spoken for.
+
+    Happens when a launch lowers the budget below what earlier launches queued, and when
+    the next trial would overrun the compute budget.
+    """
+    trials = study.get_trials(deepcopy=False)
+    number = next(t.number for t in trials if t._trial_id == trial_id)
+    if not claim_exceeds_budget(trials, number, spec):
+        return False
+    retry_locked(lambda: study._storage.set_trial_state_values(trial_id, TrialState.WAITING))
+    return True
+
+
+def _context(
+    study: optuna.Study, spec: Spec, worker_index: int, stop_event: threading.Event
+) -> TrialContext:
+    context = TrialContext(
+        spec=spec,
+        engine=engine_of(study),
+        study_name=study.study_name,
+        worker=worker_name(worker_index),
+    )
+    context.should_stop = stop_event.is_set
+    if spec.is_objective_plugin:
+        context.objective = load_objective(
+            spec.task["function"],
+            spec.base_dir,
+            spec.source,
+            "task.function",
+            path=spec.task.get("path", "."),
+        )
+    else:
+        context.task = build_spec_task(spec)
+    return context
+
+
+def run_claimed(study: optuna.Study, trial_id: int, context: TrialContext) -> TrialState:
+    """Run one claimed trial under a heartbeat; every outcome ends up in the study."""
+    trial = optuna.Trial(study, trial_id)
+    started = time.perf_counter()
+    value: float | None = None
+    interrupted = False
+    with get_heartbeat_thread(trial_id, study._storage):
+        try:
+            value = run_trial(trial, context)
+            state = TrialState.COMPLETE
+        except optuna.TrialPruned as stopped:
+            state = TrialState.PRUNED
+            if "end_reason" not in trial.user_attrs:
+                trial.set_user_attr("end_reason", str(stopped) or "stopped early")
+        except TrainingInterrupted as stop:
+            # kept as failed with its checkpoint; the next launch queues it again
+            state, interrupted = TrialState.FAIL, True
+            trial.set_user_attr("interrupted", True)
+            trial.set_user_attr(
+                "end_reason", f"interrupted in epoch {stop.epoch}; continues on resume"
+            )
+        except Exception as error:  # user code failed: record it, keep the study going
+            state = TrialState.FAIL
+            details = {key: redact(text) for key, text in failure_attrs(error).items()}
+            trial.set_user_attr("failure", details)
+            trial.set_user_attr("end_reason", f"failed: {details['type']}: {details['message']}")
+    _finish_attrs(trial, started)
+    if state == TrialState.COMPLETE and (value is None or not math.isfinite(value)):
+        trial.set_user_attr("end_reason", f"objective returned {value!r}")
+        state, value = TrialState.FAIL, None
+    retry_locked(lambda: study.tell(trial, value, state=state))
+    if not interrupted:
+        _drop_checkpoint(study, trial, context)
+    return state
+
+
+def _finish_attrs(trial: optuna.Trial, started: float) -> None:
+    wall = time.perf_counter() - started
+    trial.set_user_attr("wall_seconds", wall)
+    if "compute_seconds" not in trial.user_attrs:
+        trial.set_user_attr("compute_seconds", wall)
+
+
+def _drop_checkpoint(study: optuna.Study, trial: optuna.Trial, context: TrialContext) -> None:
+    """A finished trial needs no checkpoint, except the best one when the spec keeps it."""
+    if context.spec.is_objective_plugin:
+        return
+    origin = origin_number(trial)
+    if not context.spec.study.keep_best_checkpoint:
+        checkpoints.drop(context.engine, context.study_name, [origin])
+        return
+    drop_spent_checkpoints(study, context.spec, also=origin)
+
+
+def drop_spent_checkpoints(study: optuna.Study, spec: Spec, also: int | None = None) -> None:
+    """Drop the checkpoints of every finished trial (and of ``also``'s origin), except the
+    best one's when the spec keeps it.
+
+    The launcher calls this when a sweep ends: a worker killed between recording its trial's
+    end and dropping the checkpoint leaves one behind.
+    """
+    if spec.is_objective_plugin:
+        return
+    try:
+        best = study.best_trial
+    except ValueError:  # no complete trial yet
+        best = None
+    keep = origin_of(best) if best is not None and spec.study.keep_best_checkpoint else None
+    finished = {
+        origin_of(t)
+        for t in study.get_trials(deepcopy=False, states=(TrialState.COMPLETE, TrialState.PRUNED))
+    } | ({also} if also is not None else set())
+    checkpoints.drop(engine_of(study), study.study_name, sorted(finished - {keep}))
+
+
+def run_parallel(
+    location: str,
+    study_name: str,
+    pool: LocalPool,
+    threads: int,
+    on_done: Callable[[], None],
+    errors: list[BaseException],
+) -> threading.Thread:
+    """Run one worker on each of the pool's processes, from a helper thread."""
+
+    def until_done() -> None:
+        try:
+            _parallel_until_done(pool, location, study_name, threads)
+        finally:
+            pool.close()  # the summary can be written while they go away
+
+    return in_background(until_done, "sweeper-workers", on_done, errors)
+
+
+def in_background(
+    action: Callable[[], object],
+    name: str,
+    on_done: Callable[[], None],
+    errors: list[BaseException],
+) -> threading.Thread:
+    """Run ``action`` in a daemon thread; what it raises is kept in ``errors`` for the caller."""
+
+    def target() -> None:
+        try:
+            action()
+        except BaseException as error:  # surfaced by the launcher
+            errors.append(error)
+        finally:
+            on_done()
+
+    thread = threading.Thread(target=target, name=name, daemon=True)
+    thread.start()
+    return thread
+
+
+def _parallel_until_done(pool: LocalPool, location: str, study_name: str, threads: int) -> None:
+    """Run the workers; when one dies (killed, out of memory), start the pool again.
+
+    joblib's process pool stops every worker when one of them dies; their trials then look
+    stale and come back, from their checkpoints, through the heartbeat retry.
+    """
+    import joblib
+    from joblib.externals.loky.process_executor import TerminatedWorkerError
+
+    for restart in range(MAX_POOL_RESTARTS + 1):
+        try:
+            pool.run(
+                joblib.delayed(work)(location, study_name, index, threads, None, True)
+                for index in range(pool.size)
+            )
+            return
+        except TerminatedWorkerError:
+            if restart == MAX_POOL_RESTARTS:
+                raise
+            study, spec = load_existing(location, study_name)
+            if stop_requested(study) is not None:
+                return
+            if tally(study.get_trials(deepcopy=False)).finished >= budget_of(spec):
+                return
