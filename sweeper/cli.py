@@ -178,7 +178,7 @@ def status(study_location: str) -> None:
     from sweeper.sweep.progress import snapshot
     from sweeper.sweep.study import budget_of, load_existing
 
-    study, spec = load_existing(study_location)
+    study, spec = load_existing(study_location, read_only=True)
     snap = snapshot(study, budget_of(spec), spec.study.workers)
     click.echo(status_table(snap))
 
@@ -223,7 +223,7 @@ def replay(study_location: str, trial_number: int) -> None:
     )
     from sweeper.sweep.study import load_existing
 
-    study, spec = load_existing(study_location)
+    study, spec = load_existing(study_location, read_only=True)
     plan = plan_replay(study, spec, trial_number)
     click.echo("\n".join(header_lines(plan)))
     comparisons = run_replay(plan, lambda c: click.echo("\n".join(epoch_lines(c))))
@@ -250,7 +250,7 @@ def best(study_location: str, retrain: bool, save_path: str | None) -> None:
 
     if retrain != (save_path is not None):
         raise click.UsageError("--retrain and --save PATH go together")
-    study, spec = load_existing(study_location)
+    study, spec = load_existing(study_location, read_only=True)
     click.echo(fragment(study, spec))
     if save_path is None:
         return

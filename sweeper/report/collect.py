@@ -126,7 +126,7 @@ class StudyTables:
 
 def read_study(location: str, study_name: str | None = None) -> StudyTables:
     """Open the storage read-only, pick the study and read everything the summary needs."""
-    storage = open_storage(location, create=False, heartbeat=False)
+    storage = open_storage(location, create=False, read_only=True)
     try:
         return _read(storage, location, study_name)
     except sa.exc.SQLAlchemyError as error:

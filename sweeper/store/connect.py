@@ -11,11 +11,13 @@ import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TypeVar
+from urllib.parse import quote
 
 import optuna
 import sqlalchemy as sa
 
-from sweeper.errors import StorageFailure, StudyNotFound
+from sweeper.errors import InputError, StorageFailure, StudyNotFound
+from sweeper.store.study_file import check_study_file
 
 T = TypeVar("T")
 
@@ -85,34 +87,72 @@ def open_storage(
     create: bool = True,
     heartbeat: bool = True,
     stale_callback: Any = None,
+    read_only: bool = False,
 ) -> optuna.storages.RDBStorage:
     """Open the study database at ``location``; each process must call this itself.
 
-    ``create=False`` refuses a SQLite file that does not exist yet (for commands that only read).
+    ``create=False`` refuses a SQLite file that does not exist yet, or that is not a sound
+    study. ``read_only=True`` (for commands that only read) opens a SQLite file without ever
+    writing to it, so a study on a read-only disk or in a read-only folder can be read.
     Within one process the storage, and so its connection pool, is shared: the coordinator
     and an in-process worker together stay within the pool's three connections.
     """
     url = storage_url(location)
-    key = (os.getpid(), url)
+    key = (os.getpid(), url, read_only)
     path = sqlite_path(url)
     if key in _OPEN and (path is None or path.exists()):
         return _OPEN[key]
-    storage = _open(url, create, heartbeat, stale_callback)
+    if path is not None:
+        _check_path(path, create=create and not read_only, read_only=read_only)
+        if read_only:
+            url = _read_only_url(path)
+    storage = _open(url, heartbeat and not read_only, stale_callback, read_only)
     _OPEN[key] = storage
     return storage
 
 
-_OPEN: dict[tuple[int, str], optuna.storages.RDBStorage] = {}
+_OPEN: dict[tuple[int, str, bool], optuna.storages.RDBStorage] = {}
+
+
+def _check_path(path: Path, *, create: bool, read_only: bool) -> None:
+    """One line, exit 2, for a SQLite location that cannot be used as asked."""
+    if not path.exists():
+        if not create:
+            raise StudyNotFound(f"{path}: no study database here; check the path")
+        folder = _first_existing(path.parent)
+        if not os.access(folder, os.W_OK | os.X_OK):
+            raise InputError(
+                f"{folder}: no permission to create the study {path.name} here; choose a "
+                "writable folder (study.storage or --storage) or change the folder's permissions"
+            )
+        path.parent.mkdir(parents=True, exist_ok=True)
+        return
+    check_study_file(path)
+    if not read_only and not (os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)):
+        raise InputError(
+            f"{path}: the study is read-only (no write permission on the file or its folder); "
+            "status, report, export and best can still read it, or copy it somewhere writable"
+        )
+
+
+def _first_existing(folder: Path) -> Path:
+    while not folder.exists() and folder != folder.parent:
+        folder = folder.parent
+    return folder
+
+
+def _read_only_url(path: Path) -> str:
+    # mode=ro never writes; where SQLite cannot even make its shared-memory file beside the
+    # database (a read-only folder or disk) and no write-ahead log is pending, immutable=1
+    # reads the file as it is
+    pending = path.with_name(path.name + "-wal").exists()
+    flags = "mode=ro" if pending or os.access(path.parent, os.W_OK) else "mode=ro&immutable=1"
+    return f"sqlite:///file:{quote(str(path))}?{flags}&uri=true"
 
 
 def _open(
-    url: str, create: bool, heartbeat: bool, stale_callback: Any
+    url: str, heartbeat: bool, stale_callback: Any, read_only: bool
 ) -> optuna.storages.RDBStorage:
-    path = sqlite_path(url)
-    if path is not None:
-        if not create and not path.exists():
-            raise StudyNotFound(f"{path}: no study database here; check the path")
-        path.parent.mkdir(parents=True, exist_ok=True)
     try:
         with warnings.catch_warnings():  # heartbeats are "experimental" in optuna 5
             warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
@@ -126,7 +166,7 @@ def _open(
     except (sa.exc.SQLAlchemyError, ImportError, ValueError) as error:
         message = f"cannot open storage {redact(url)}: {describe_error(error)}"
         raise StorageFailure(message) from None
-    if is_sqlite(url):
+    if is_sqlite(url) and not read_only:
         sa.event.listen(storage.engine, "connect", _set_sqlite_pragmas)
         sa.event.listen(storage.engine, "begin", _begin_immediate)
         storage.engine.dispose()  # reconnect so that every pooled connection gets the pragmas

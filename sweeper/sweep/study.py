@@ -145,9 +145,14 @@ def _refuse_changed_spec(study: optuna.Study, spec: Spec) -> None:
     )
 
 
-def load_existing(location: str, study_name: str | None = None) -> tuple[optuna.Study, Spec]:
-    """An existing study and the spec stored inside it (for resume, status, report, worker)."""
-    storage = open_storage(location, create=False)
+def load_existing(
+    location: str, study_name: str | None = None, *, read_only: bool = False
+) -> tuple[optuna.Study, Spec]:
+    """An existing study and the spec stored inside it (for resume, status, report, worker).
+
+    ``read_only=True`` for commands that only read: the database is never written.
+    """
+    storage = open_storage(location, create=False, read_only=read_only)
     names = list(optuna.get_all_study_names(storage))
     if study_name is None:
         if len(names) != 1:
