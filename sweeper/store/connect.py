@@ -106,7 +106,7 @@ def open_storage(
         _check_path(path, create=create and not read_only, read_only=read_only)
         if read_only:
             url = _read_only_url(path)
-    storage = _open(url, heartbeat and not read_only, stale_callback, read_only)
+    storage = _open_first_or_join(url, heartbeat and not read_only, stale_callback, read_only)
     _OPEN[key] = storage
     return storage
 
@@ -127,7 +127,7 @@ def _check_path(path: Path, *, create: bool, read_only: bool) -> None:
             )
         path.parent.mkdir(parents=True, exist_ok=True)
         return
-    check_study_file(path)
+    check_study_file(path, must_be_study=not create)
     if not read_only and not (os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)):
         raise InputError(
             f"{path}: the study is read-only (no write permission on the file or its folder); "
@@ -148,6 +148,27 @@ def _read_only_url(path: Path) -> str:
     pending = path.with_name(path.name + "-wal").exists()
     flags = "mode=ro" if pending or os.access(path.parent, os.W_OK) else "mode=ro&immutable=1"
     return f"sqlite:///file:{quote(str(path))}?{flags}&uri=true"
+
+
+def _open_first_or_join(
+    url: str, heartbeat: bool, stale_callback: Any, read_only: bool
+) -> optuna.storages.RDBStorage:
+    """``_open``, safe against another process creating the same new database right now.
+
+    Two launches on a new file both find no tables and both create them; the slower one
+    then fails on a table or schema row the other just wrote. It joins instead: opening
+    again finds the tables made.
+    """
+    attempts = 5
+    for attempt in range(attempts):
+        try:
+            return _open(url, heartbeat, stale_callback, read_only)
+        except StorageFailure as error:
+            raced = "alembic_version" in str(error) or "already exists" in str(error)
+            if not raced or attempt == attempts - 1:
+                raise
+            time.sleep(0.1 * (attempt + 1))
+    raise AssertionError("unreachable")
 
 
 def _open(

@@ -123,7 +123,7 @@ def create_or_continue(
     study = optuna.create_study(
         storage=storage, study_name=spec.study.name, direction=direction, load_if_exists=True
     )
-    if spec.study.name in names:
+    if spec.study.name in names or "spec_hash" in study.user_attrs:  # or made just now
         _refuse_changed_spec(study, spec)
     tables.ensure_tables(storage.engine)
     for key, value in attrs.items():
