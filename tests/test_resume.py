@@ -256,3 +256,25 @@ def test_a_sweeps_end_drops_checkpoints_that_dead_workers_left(in_tmp: Path) -> 
     assert proc.checkpoint_epochs(db) == {1100: 1}
     checkpoints.drop(engine, "r", list(range(1200)))  # more numbers than one statement takes
     assert proc.checkpoint_epochs(db) == {}
+
+
+def test_a_double_ctrl_c_stops_pool_workers_at_once(tmp_path: Path) -> None:
+    # a double Ctrl-C as a terminal sends it to the launcher alone, 0.02 s apart
+    spec = _spec(tmp_path, trials=10, workers=2, epochs=3)
+    db = tmp_path / "runs" / "r.db"
+    launcher = proc.start(tmp_path, "run", spec.name)
+    proc.wait_for(lambda: proc.epoch_count(db) >= 1, 120, "a first epoch")
+    sent = time.monotonic()
+    launcher.send_signal(signal.SIGINT)
+    time.sleep(0.02)
+    launcher.send_signal(signal.SIGINT)
+    assert launcher.wait(timeout=30) == 130
+    assert time.monotonic() - sent < 8, "the second Ctrl-C does not wait for the budget"
+    epochs = proc.epoch_count(db)
+    time.sleep(3)
+    assert proc.epoch_count(db) == epochs, "no worker trains on after the launcher left"
+    finished = [
+        t for t in proc.trials(db, "r") if t.state.is_finished() and t.state != TrialState.FAIL
+    ]
+    assert len(finished) < 10
+    assert "stopped at once" in (tmp_path / "stderr.txt").read_text()

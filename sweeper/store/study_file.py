@@ -18,12 +18,16 @@ from sweeper.errors import InputError
 STUDY_TABLES = frozenset({"studies", "trials", "alembic_version"})
 
 
-def check_study_file(path: Path) -> None:
-    """Raise InputError unless ``path`` is a readable, undamaged SQLite study database."""
+def check_study_file(path: Path, *, must_be_study: bool = True) -> None:
+    """Raise InputError unless ``path`` is a readable, undamaged SQLite study database.
+
+    ``must_be_study=False`` (a command about to create the study) accepts any sound SQLite
+    database, among them one that another launch is making into a study right now.
+    """
     try:
         with contextlib.closing(_read_only(path)) as connection:
             names = {row[0] for row in connection.execute("SELECT name FROM sqlite_master")}
-            if not names >= STUDY_TABLES:
+            if must_be_study and not names >= STUDY_TABLES:
                 raise InputError(
                     f"{path}: not a sweeper study (a SQLite database without a study's "
                     "tables); point at the .db file that `sweeper run` made"

@@ -39,6 +39,7 @@ from sweeper.sweep.workers import (
 
 WATCH_SECONDS = 0.5
 STOP_WAIT_SECONDS = 8.0
+QUICK_STOP_SECONDS = 3.0  # a worker's stop poll (1 s) and one window
 
 
 @dataclass
@@ -228,12 +229,14 @@ def _watch(
             if stop.is_set():
                 _stop_workers(coordinator, finished, placement.joined)
             coordinator.step_when_due()
+        thread.join(timeout=5)
+        if stop.is_set():
+            _stop_workers(coordinator, finished, placement.joined)
     except TooManyFailures:
         finished.wait(60)
         raise
-    thread.join(timeout=5)
-    if stop.is_set():
-        _stop_workers(coordinator, finished, placement.joined)
+    except KeyboardInterrupt:  # a second signal
+        _stop_at_once(coordinator, finished, placement)
     if errors:
         error = errors[0]
         if isinstance(error, RunFailure):
@@ -241,6 +244,25 @@ def _watch(
         raise RunFailure(f"a worker stopped: {type(error).__name__}: {redact(str(error))}")
     coordinator.step()
     drop_spent_checkpoints(coordinator.study, coordinator.spec)
+
+
+def _stop_at_once(
+    coordinator: Coordinator, finished: threading.Event, placement: Placement
+) -> None:
+    """A second signal: leave within seconds, and stop the local workers with the launcher.
+
+    The first signal's stop request may not be stored yet (two presses of Ctrl-C arrive
+    together), so it is stored here; workers that see it mark their trial interrupted at the
+    next window boundary. Whatever still runs after a short wait is killed; its trial comes
+    back through the stale-heartbeat retry.
+    """
+    if not placement.joined:
+        request_stop(coordinator.study, "interrupted")
+    finished.wait(QUICK_STOP_SECONDS)
+    if placement.pool is not None:
+        placement.pool.kill()
+    location = redact(coordinator.spec.storage_location)
+    raise Interrupted(f"stopped at once (second signal); continue with: sweeper resume {location}")
 
 
 def _stop_workers(coordinator: Coordinator, finished: threading.Event, joined: bool) -> None:

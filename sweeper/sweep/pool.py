@@ -83,6 +83,11 @@ class LocalPool:
             self._busy = False
             parallel.__exit__(None, None, None)
 
+    def kill(self) -> None:
+        """Kill every worker process now, busy or not (the launcher is leaving at once)."""
+        self._busy = False
+        self.close()
+
     def close(self) -> None:
         """Stop idle worker processes now rather than at the interpreter's exit.
 
