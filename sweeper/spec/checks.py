@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from sweeper.errors import SpecError
-from sweeper.spec.did_you_mean import closest
+from sweeper.did_you_mean import closest
 from sweeper.spec.space import Choices, Fixed, Range, SearchEntry, grid_size
 from sweeper.tasks.objective import load_objective
 from sweeper.training.params import PARAM_NAMES, TrialParams

@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from sweeper.errors import SpecError
-from sweeper.spec.did_you_mean import closest
+from sweeper.did_you_mean import closest
 from sweeper.spec.space import SearchEntry, grid_points, parse_search
 from sweeper.training.params import PARAM_NAMES, TrialParams
 

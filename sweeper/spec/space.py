@@ -9,7 +9,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from sweeper.errors import SpecError
-from sweeper.spec.did_you_mean import closest
+from sweeper.did_you_mean import closest
 
 if TYPE_CHECKING:  # optuna loads on first use: reading a spec should not wait for it
     import optuna
