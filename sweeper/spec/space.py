@@ -8,8 +8,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from sweeper.errors import SpecError
 from sweeper.did_you_mean import closest
+from sweeper.errors import SpecError
 
 if TYPE_CHECKING:  # optuna loads on first use: reading a spec should not wait for it
     import optuna
