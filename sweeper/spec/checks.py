@@ -44,7 +44,8 @@ def build_spec_task(spec: Spec) -> Task:
 
 def _task_key(spec: Spec) -> tuple[str, ...]:
     table = json.dumps(spec.task.table(), sort_keys=True, default=str)
-    return (spec.source, str(spec.base_dir.resolve()), table, *_file_stamps(spec))
+    # not the source's spelling: a worker reads the study's copy of the spec by its full path
+    return (str(spec.base_dir.resolve()), table, *_file_stamps(spec))
 
 
 def _file_stamps(spec: Spec) -> list[str]:
