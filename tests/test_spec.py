@@ -249,7 +249,7 @@ def test_digest_is_unchanged_so_existing_studies_continue(name: str) -> None:
 @pytest.mark.parametrize(
     ("text", "expected"),
     [
-        (GOOD.replace('kind = "adding"\n', ""), 'bad.toml: task.kind: missing; name the task'),
+        (GOOD.replace('kind = "adding"\n', ""), "bad.toml: task.kind: missing; name the task"),
         (GOOD.replace('kind = "adding"', "kind = 3"), "bad.toml: task.kind: must be a string"),
         (
             GOOD.replace('kind = "adding"', 'kind = "adding"\nmodel_path = "nets"'),
