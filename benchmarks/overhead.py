@@ -69,12 +69,12 @@ def prepare(folder: Path, spec_text: str) -> tuple[Path, Path]:
     from sweeper.seeds import derive_seed, trial_seed
     from sweeper.spec.loading import load_spec
     from sweeper.spec.space import grid_points
-    from sweeper.tasks.registry import build_task
+    from sweeper.tasks.registry import build_section_task
 
     spec_path = folder / "overhead.toml"
     spec_path.write_text(spec_text)
     spec = load_spec(spec_path)
-    task = build_task(spec.task, folder, str(spec_path))
+    task = build_section_task(spec.task, folder, str(spec_path))
     splits = {s: task.data(s) for s in ("train", "valid")}
     data = {s: (d.inputs, d.targets, d.weights) for s, d in splits.items()}
     torch.save(data, folder / "data.pt")

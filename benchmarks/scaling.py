@@ -60,11 +60,11 @@ CEILING = """
 import sys, time, torch
 from sweeper.training.params import TrialParams
 from sweeper.spec.loading import load_spec
-from sweeper.tasks.registry import build_task
+from sweeper.tasks.registry import build_section_task
 from sweeper.training.trial_run import train
 torch.set_num_threads(1)
 spec = load_spec(sys.argv[1])
-task = build_task(spec.task, spec.base_dir, spec.source)
+task = build_section_task(spec.task, spec.base_dir, spec.source)
 params = TrialParams.from_mapping({**spec.training.defaults, "lr": 0.01})
 started = time.perf_counter()
 train(task, params, spec.training.epochs, seed=1)
@@ -95,12 +95,12 @@ def thread_cost(spec: Path, rounds: int) -> tuple[int, float]:
 
     from sweeper.spec.loading import load_spec
     from sweeper.sweep.workers import default_threads
-    from sweeper.tasks.registry import build_task
+    from sweeper.tasks.registry import build_section_task
     from sweeper.training.params import TrialParams
     from sweeper.training.trial_run import TrialRun
 
     loaded = load_spec(spec)
-    task = build_task(loaded.task, loaded.base_dir, loaded.source)
+    task = build_section_task(loaded.task, loaded.base_dir, loaded.source)
     params = TrialParams.from_mapping({**loaded.training.defaults, "lr": 0.01})
     many, previous = default_threads(1), torch.get_num_threads()
     times: dict[int, list[float]] = {many: [], 1: []}

@@ -190,7 +190,7 @@ def test_loaded_model_describes_its_task_and_scaling(in_tmp: Path) -> None:
     assert info["held_out"] == "test" and info["study"] == "tanks"
     assert info["spec_text"] == SERIES
     _study, spec = load_existing("runs/tanks.db")
-    task = sweeper.tasks.registry.build_task(spec.task, spec.base_dir, spec.source)
+    task = sweeper.tasks.registry.build_section_task(spec.task, spec.base_dir, spec.source)
     mean, std = model.target_scaling
     assert mean.tolist() == task.target_scaling.mean.tolist()
     assert std.tolist() == task.target_scaling.std.tolist()

@@ -13,6 +13,7 @@ from optuna.trial import TrialState
 
 from sweeper.errors import SpecError
 from sweeper.store.connect import open_storage
+from sweeper.tasks.section import task_section
 from sweeper.training.model_plugin import PluginBuilder, build_task_with_model, model_builder
 from sweeper.training.models import build_model
 from sweeper.training.params import TrialParams
@@ -82,12 +83,13 @@ def write_module(folder: Path) -> str:
 
 
 def adding(folder: Path, **options):
-    return build_task_with_model({"kind": "adding", "length": 6, **options}, folder, "m.toml")
+    section = task_section({"kind": "adding", "length": 6, **options}, "m.toml")
+    return build_task_with_model(section, folder, "m.toml")
 
 
 def test_the_function_gets_the_trial_params_and_the_task_sizes(tmp_path: Path) -> None:
     name = write_module(tmp_path)
-    build = model_builder({"model": f"{name}:build"}, tmp_path, "m.toml")
+    build = model_builder(f"{name}:build", None, tmp_path, "m.toml")
     assert isinstance(build, PluginBuilder)
     model = build(TrialParams(hidden=7, lr=0.5), 2, 1)
     params, input_size, output_size = sys.modules[name].calls[-1]
@@ -96,7 +98,7 @@ def test_the_function_gets_the_trial_params_and_the_task_sizes(tmp_path: Path) -
 
 
 def test_without_a_model_key_the_builtin_model_is_used(tmp_path: Path) -> None:
-    assert model_builder({"kind": "adding"}, tmp_path, "m.toml") is build_model
+    assert model_builder(None, None, tmp_path, "m.toml") is build_model
 
 
 def test_a_model_path_folder_is_searched_and_sys_path_restored(tmp_path: Path) -> None:

@@ -7,10 +7,15 @@ from pathlib import Path
 import pytest
 import torch
 
+from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
+from sweeper.spec import sections
+from sweeper.tasks import options as task_options
 from sweeper.tasks.base import Task
 from sweeper.tasks.objective import load_objective
+from sweeper.tasks.options import OptionError, unknown_key_message
 from sweeper.tasks.registry import TASK_KINDS, build_task
+from sweeper.tasks.section import TaskSection, section_from_table
 
 GENERATED = {
     "adding": {"length": 12},
@@ -208,3 +213,40 @@ def test_load_objective_errors_name_the_key(tmp_path, ref, words):
         load_objective(ref.format(name=name), tmp_path, "o.toml", "task.function")
     assert caught.value.key == "task.function"
     assert words in caught.value.message
+
+
+def test_one_did_you_mean_for_spec_keys_and_task_options():
+    # the spec's keys and the task options share one helper and so one cut-off
+    assert closest("adder", TASK_KINDS) == "adding"  # difflib ratio 0.545, above the cut-off
+    assert closest("xyz", TASK_KINDS) is None
+    assert "did you mean 'adding'?" in unknown_key_message("adder", TASK_KINDS, "task kind")
+    assert sections.closest is closest and task_options.closest is closest
+
+
+def test_task_section_keeps_the_model_keys_out_of_the_options():
+    section = section_from_table({"kind": "adding", "length": 9, "model": "m:f"})
+    assert section.options == {"length": 9}
+    assert (section.model, section.model_path) == ("m:f", None)
+    assert build(section.table()).length == 9
+
+
+@pytest.mark.parametrize(
+    ("make", "key"),
+    [
+        (lambda: TaskSection(3), "kind"),  # type: ignore[arg-type]
+        (lambda: TaskSection("adding", model_path="nets"), "model_path"),
+        (lambda: TaskSection("adding", model=3), "model"),  # type: ignore[arg-type]
+        (lambda: TaskSection("objective"), "function"),
+        (lambda: TaskSection("objective", {"fn": "a:b"}, function="a:b"), "fn"),
+        (lambda: TaskSection("objective", function="a:b", path=1), "path"),  # type: ignore[arg-type]
+    ],
+)
+def test_task_section_checks_its_own_shape(make, key):
+    with pytest.raises(OptionError) as caught:
+        make()
+    assert caught.value.key == key
+
+
+def test_an_objective_is_no_task_kind_to_build():
+    error = spec_error({"kind": "objective", "function": "a:b"})
+    assert error.key == "task.kind" and "unknown task kind 'objective'" in error.message

@@ -173,8 +173,8 @@ def load_model(path: str | Path) -> SavedModel:
     payload = _read(path)
     info = payload["info"]
     plugin = info.get("model")
-    options = {} if plugin is None else {"model": plugin["ref"], "model_path": plugin["folder"]}
-    build = model_builder(options, path.parent, str(path))
+    model, folder = (None, None) if plugin is None else (plugin["ref"], plugin["folder"])
+    build = model_builder(model, folder, path.parent, str(path))
     network = build(
         TrialParams.from_mapping(info["params"]), info["input_size"], info["output_size"]
     )

@@ -16,7 +16,7 @@ from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
 from sweeper.sweep.workers import default_threads
 from sweeper.tasks.base import Task
-from sweeper.training.model_plugin import model_builder
+from sweeper.training.model_plugin import section_model_builder
 from sweeper.training.models import ModelBuilder
 from sweeper.training.params import TrialParams
 
@@ -48,7 +48,7 @@ def stored_trial(study: optuna.Study, spec: Spec, trial: FrozenTrial) -> StoredT
     """The trial's training parameters and seed; a retry's seed is its origin's."""
     if spec.is_objective_plugin:
         raise InputError(
-            f"study '{study.study_name}' runs an objective plugin ({spec.task.get('function')}); "
+            f"study '{study.study_name}' runs an objective plugin ({spec.task.function}); "
             "only trials that sweeper trains can be retrained"
         )
     training = trial.user_attrs.get("training")
@@ -65,7 +65,7 @@ def stored_trial(study: optuna.Study, spec: Spec, trial: FrozenTrial) -> StoredT
 
 def training_setup(spec: Spec) -> tuple[Task, ModelBuilder]:
     """The spec's task and model builder, as every worker of the study built them."""
-    return build_spec_task(spec), model_builder(spec.task, spec.base_dir, spec.source)
+    return build_spec_task(spec), section_model_builder(spec.task, spec.base_dir, spec.source)
 
 
 def sweep_threads(spec: Spec) -> int:

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
-from sweeper.spec.did_you_mean import closest
 from sweeper.spec.space import Choices, Fixed, Range, SearchEntry, grid_size
-from sweeper.tasks.objective import load_objective
+from sweeper.tasks.objective import Objective, load_objective
 from sweeper.training.params import PARAM_NAMES, TrialParams
 
 if TYPE_CHECKING:
@@ -15,7 +17,6 @@ if TYPE_CHECKING:
     from sweeper.tasks.base import Task
 
 INTEGER_PARAMS = ("unroll", "hidden", "layers", "batch")
-OBJECTIVE_KEYS = ("kind", "function", "path")
 
 
 def check_spec_against_task(spec: Spec) -> None:
@@ -27,28 +28,63 @@ def check_spec_against_task(spec: Spec) -> None:
     _check_sampler(spec)
 
 
+_BUILT: dict[tuple[str, ...], Task] = {}  # the latest spec's task, by _task_key
+
+
 def build_spec_task(spec: Spec) -> Task:
+    """The spec's task, built once per process: the check, the launcher's baseline and an
+    in-process worker share it (a data file is read once). A changed data file builds anew."""
+    key = _task_key(spec)
+    if key not in _BUILT:
+        task = _build_task(spec)
+        _BUILT.clear()  # one spec's task at a time: a task can hold much data
+        _BUILT[key] = task
+    return _BUILT[key]
+
+
+def _task_key(spec: Spec) -> tuple[str, ...]:
+    table = json.dumps(spec.task.table(), sort_keys=True, default=str)
+    # not the source's spelling: a worker reads the study's copy of the spec by its full path
+    return (str(spec.base_dir.resolve()), table, *_file_stamps(spec))
+
+
+def _file_stamps(spec: Spec) -> list[str]:
+    """Size and modification time of each file an option names, so that an edited data file
+    is read again (a task can read any option as a file name relative to the spec)."""
+    stamps = []
+    for value in spec.task.options.values():
+        if not isinstance(value, str) or not value:
+            continue
+        try:
+            path = spec.base_dir / Path(value).expanduser()
+            stat = path.stat() if path.is_file() else None
+        except (OSError, ValueError, RuntimeError):  # not a usable path: it names no file
+            stat = None
+        if stat is not None:
+            stamps.append(f"{value}:{stat.st_size}:{stat.st_mtime_ns}")
+    return stamps
+
+
+def _build_task(spec: Spec) -> Task:
     # here, not at the top: building a task loads torch, which reading a spec must not
     from sweeper.training.model_plugin import build_task_with_model
 
-    if "kind" not in spec.task:
-        raise SpecError(spec.source, "task.kind", 'missing; name the task (e.g. kind = "adding")')
     return build_task_with_model(spec.task, spec.base_dir, spec.source)
 
 
 def _check_objective(spec: Spec) -> None:
-    for key in spec.task:
-        if key not in OBJECTIVE_KEYS:
-            hint = closest(key, OBJECTIVE_KEYS)
-            fix = f"did you mean '{hint}'?" if hint else f"valid keys: {', '.join(OBJECTIVE_KEYS)}"
-            raise SpecError(spec.source, f"task.{key}", f"unknown key; {fix}")
-    ref = spec.task.get("function")
-    if not isinstance(ref, str):
-        raise SpecError(spec.source, "task.function", 'missing; give "module:function"')
+    # the section itself checked its keys and that function is a string
     if not spec.search:
         raise SpecError(spec.source, "search", "an objective plugin needs at least one parameter")
-    load_objective(
-        ref, spec.base_dir, spec.source, "task.function", path=spec.task.get("path", ".")
+    load_objective_of(spec)
+
+
+def load_objective_of(spec: Spec) -> Objective:
+    """The objective plugin a ``kind = "objective"`` spec names."""
+    task = spec.task
+    assert task.function is not None, "an objective section names its function"
+    return load_objective(
+        task.function, spec.base_dir, spec.source, "task.function", path=task.path or "."
     )
 
 

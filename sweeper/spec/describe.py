@@ -28,7 +28,7 @@ def describe_spec(spec: Spec) -> str:
         f"seed {study.seed}, stopping rule {spec.stopping.rule}",
     ]
     if spec.is_objective_plugin:
-        lines.append(f"  task     objective plugin {spec.task['function']}")
+        lines.append(f"  task     objective plugin {spec.task.function}")
     else:
         task = build_spec_task(spec)
         baseline = task.baseline()

@@ -12,9 +12,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
-from sweeper.spec.did_you_mean import closest
 from sweeper.spec.space import SearchEntry, grid_points, parse_search
+from sweeper.tasks.section import TaskSection, task_section
 from sweeper.training.params import PARAM_NAMES, TrialParams
 
 GOALS = ("minimize", "maximize")
@@ -29,6 +30,21 @@ MUTABLE_KEYS = (
     "study.storage",
     "study.heartbeat",
 )
+
+
+class SectionError(SpecError):
+    """A section's rule broken, raised by the section's dataclass, which knows no file name.
+
+    ``str()`` is ``key: message``; reading a spec file re-raises it as a SpecError that names
+    the file (``in_file``).
+    """
+
+    def __init__(self, key: str, message: str) -> None:
+        super().__init__("", key, message)
+        self.args = (f"{key}: {message}",)
+
+    def in_file(self, source: str) -> SpecError:
+        return SpecError(source, self.key, self.message)
 
 
 @dataclass(frozen=True)
@@ -47,12 +63,36 @@ class StudySection:
     heartbeat: int = 10  # seconds; a trial silent for 3 heartbeats is taken as dead
     keep_best_checkpoint: bool = False
 
+    def __post_init__(self) -> None:
+        _check_field_types(self, "study")
+        if not self.name.strip():
+            raise SectionError("study.name", "must not be empty")
+        _require_choice("study.goal", self.goal, GOALS)
+        _require_choice("study.objective", self.objective, OBJECTIVES)
+        _require_choice("study.sampler", self.sampler, SAMPLERS)
+        _require_min("study.trials", self.trials, 1)
+        _require_min("study.workers", self.workers, 1)
+        _require_min("study.max_failures", self.max_failures, 1)
+        _require_min("study.max_retries", self.max_retries, 0)
+        _require_min("study.heartbeat", self.heartbeat, 1)
+        hours = self.compute_hours
+        if not (math.isfinite(hours) and hours >= 0):
+            fix = f"must be a number of hours >= 0 (0 = no compute limit), got {hours}"
+            raise SectionError("study.compute_hours", fix)
+
 
 @dataclass(frozen=True)
 class TrainingSection:
     epochs: int = 5
     threads: int = 0  # torch threads per worker; 0 = cores / workers
-    defaults: dict[str, Any] = field(default_factory=dict)
+    defaults: dict[str, Any] = field(default_factory=dict)  # fixed TrialParams values
+
+    def __post_init__(self) -> None:
+        _check_keys("training.", self.defaults, PARAM_NAMES)
+        _check_field_types(self, "training", skip=("defaults",))
+        _require_min("training.epochs", self.epochs, 1)
+        _require_min("training.threads", self.threads, 0)
+        object.__setattr__(self, "defaults", _checked_defaults(self.defaults))
 
 
 @dataclass(frozen=True)
@@ -63,20 +103,28 @@ class StoppingSection:
     warmup_trials: int = 4
     patience: int = 0  # epochs without improvement tolerated before the rule may stop a trial
 
+    def __post_init__(self) -> None:
+        _check_field_types(self, "stopping")
+        _require_choice("stopping.rule", self.rule, RULES)
+        _require_min("stopping.min_epochs", self.min_epochs, 1)
+        _require_min("stopping.reduction", self.reduction, 2)
+        _require_min("stopping.warmup_trials", self.warmup_trials, 0)
+        _require_min("stopping.patience", self.patience, 0)
+
 
 @dataclass(frozen=True)
 class Spec:
     source: str
     text: str
     study: StudySection
-    task: dict[str, Any]
+    task: TaskSection
     training: TrainingSection
     search: dict[str, SearchEntry]
     stopping: StoppingSection
 
     @property
     def is_objective_plugin(self) -> bool:
-        return self.task.get("kind") == "objective"
+        return self.task.is_objective
 
     @property
     def base_dir(self) -> Path:
@@ -90,7 +138,7 @@ class Spec:
         """The parsed spec as plain data: what two launches of one study must agree on."""
         return {
             "study": dataclasses.asdict(self.study),
-            "task": self.task,
+            "task": self.task.table(),
             "training": dataclasses.asdict(self.training),
             "search": {name: entry.describe() for name, entry in sorted(self.search.items())},
             "stopping": dataclasses.asdict(self.stopping),
@@ -129,18 +177,25 @@ def spec_from_text(text: str, source: str) -> Spec:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as error:
         raise SpecError(source, "", f"not valid TOML: {error}") from None
-    _check_keys(source, "", data, ("study", "task", "training", "search", "stopping"))
+    try:
+        return _spec_from_tables(data, text, source)
+    except SectionError as error:
+        raise error.in_file(source) from None
+
+
+def _spec_from_tables(data: Mapping[str, Any], text: str, source: str) -> Spec:
+    _check_keys("", data, ("study", "task", "training", "search", "stopping"))
     for section in ("study", "task"):
         if section not in data:
-            raise SpecError(source, section, f"missing section; add a [{section}] table")
+            raise SectionError(section, f"missing section; add a [{section}] table")
     for name, value in data.items():
         if not isinstance(value, dict):
-            raise SpecError(source, name, f"must be a table ([{name}]), got {_kind(value)}")
-    study = _parse_study(source, data["study"])
-    task = dict(data["task"])
-    training = _parse_training(source, data.get("training", {}))
+            raise SectionError(name, f"must be a table ([{name}]), got {_kind(value)}")
+    study = _parse_study(data["study"])
+    training = _parse_training(data.get("training", {}))
     search = parse_search(source, data.get("search", {}))
-    stopping = _parse_stopping(source, data.get("stopping", {}))
+    stopping = _section("stopping", StoppingSection, data.get("stopping", {}))
+    task = task_section(data["task"], source)
     return Spec(source, text, study, task, training, search, stopping)
 
 
@@ -150,96 +205,77 @@ def _kind(value: Any) -> str:
     )
 
 
-def _check_keys(
-    source: str, prefix: str, table: Mapping[str, Any], allowed: tuple[str, ...]
-) -> None:
+def _check_keys(prefix: str, table: Mapping[str, Any], allowed: tuple[str, ...]) -> None:
     for key in table:
         if key not in allowed:
             hint = closest(key, allowed)
             fix = f"did you mean '{hint}'?" if hint else f"valid keys: {', '.join(allowed)}"
-            raise SpecError(source, f"{prefix}{key}", f"unknown key; {fix}")
+            raise SectionError(f"{prefix}{key}", f"unknown key; {fix}")
 
 
-def _field_value(source: str, key: str, value: Any, default: Any) -> Any:
+def _field_value(key: str, value: Any, default: Any) -> Any:
+    """``value`` if it has the type of ``default``; a whole number is taken as a float."""
     expected = type(default)
     if expected is float and isinstance(value, int) and not isinstance(value, bool):
         return float(value)
     if isinstance(value, bool) != isinstance(default, bool) or not isinstance(value, expected):
-        raise SpecError(source, key, f"must be {_kind(default)}, got {_kind(value)} {value!r}")
+        raise SectionError(key, f"must be {_kind(default)}, got {_kind(value)} {value!r}")
     return value
 
 
-def _section(source: str, name: str, cls: Any, table: Mapping[str, Any], **fixed: Any) -> Any:
-    fields = {f.name: f for f in dataclasses.fields(cls) if f.name not in fixed}
-    _check_keys(source, f"{name}.", table, tuple(fields))
-    values: dict[str, Any] = {}
-    for key, value in table.items():
-        default = fields[key].default
-        if default is dataclasses.MISSING:
-            default = ""
-        values[key] = _field_value(source, f"{name}.{key}", value, default)
-    return cls(**fixed, **values)
+def _check_field_types(section: Any, name: str, skip: tuple[str, ...] = ()) -> None:
+    """Each field of a frozen section has its default's type (a field without one: text)."""
+    for item in dataclasses.fields(section):
+        if item.name in skip:
+            continue
+        default = "" if item.default is dataclasses.MISSING else item.default
+        value = getattr(section, item.name)
+        checked = _field_value(f"{name}.{item.name}", value, default)
+        object.__setattr__(section, item.name, checked)  # frozen: widen an int in place
 
 
-def _require_choice(source: str, key: str, value: str, allowed: tuple[str, ...]) -> None:
-    if value not in allowed:
-        hint = closest(value, allowed)
-        extra = f"; did you mean '{hint}'?" if hint else ""
-        raise SpecError(source, key, f"must be one of {', '.join(allowed)}, got {value!r}{extra}")
-
-
-def _require_min(source: str, key: str, value: int, low: int) -> None:
-    if value < low:
-        raise SpecError(source, key, f"must be at least {low}, got {value}")
-
-
-def _parse_study(source: str, table: Mapping[str, Any]) -> StudySection:
-    if "name" not in table:
-        raise SpecError(source, "study.name", "missing; give the study a name")
-    study = _section(source, "study", StudySection, table)
-    if not study.name.strip():
-        raise SpecError(source, "study.name", "must not be empty")
-    _require_choice(source, "study.goal", study.goal, GOALS)
-    _require_choice(source, "study.objective", study.objective, OBJECTIVES)
-    _require_choice(source, "study.sampler", study.sampler, SAMPLERS)
-    _require_min(source, "study.trials", study.trials, 1)
-    _require_min(source, "study.workers", study.workers, 1)
-    _require_min(source, "study.max_failures", study.max_failures, 1)
-    _require_min(source, "study.max_retries", study.max_retries, 0)
-    _require_min(source, "study.heartbeat", study.heartbeat, 1)
-    hours = study.compute_hours
-    if not (math.isfinite(hours) and hours >= 0):
-        fix = f"must be a number of hours >= 0 (0 = no compute limit), got {hours}"
-        raise SpecError(source, "study.compute_hours", fix)
-    return study
-
-
-def _parse_training(source: str, table: Mapping[str, Any]) -> TrainingSection:
-    own = {key: value for key, value in table.items() if key in ("epochs", "threads")}
-    defaults = {key: value for key, value in table.items() if key not in own}
-    _check_keys(source, "training.", defaults, PARAM_NAMES)
-    training = _section(source, "training", TrainingSection, own, defaults=defaults)
-    _require_min(source, "training.epochs", training.epochs, 1)
-    _require_min(source, "training.threads", training.threads, 0)
+def _checked_defaults(defaults: Mapping[str, Any]) -> dict[str, Any]:
+    """Fixed training values, each of its TrialParams type and within its rules."""
     reference = TrialParams()
+    checked: dict[str, Any] = {}
     for key, value in defaults.items():
-        value = _field_value(source, f"training.{key}", value, getattr(reference, key))
+        value = _field_value(f"training.{key}", value, getattr(reference, key))
         try:
             TrialParams.from_mapping({key: value})
         except ValueError as error:
-            raise SpecError(source, f"training.{key}", str(error)) from None
-        defaults[key] = value
-    return training
+            raise SectionError(f"training.{key}", str(error)) from None
+        checked[key] = value
+    return checked
 
 
-def _parse_stopping(source: str, table: Mapping[str, Any]) -> StoppingSection:
-    stopping = _section(source, "stopping", StoppingSection, table)
-    _require_choice(source, "stopping.rule", stopping.rule, RULES)
-    _require_min(source, "stopping.min_epochs", stopping.min_epochs, 1)
-    _require_min(source, "stopping.reduction", stopping.reduction, 2)
-    _require_min(source, "stopping.warmup_trials", stopping.warmup_trials, 0)
-    _require_min(source, "stopping.patience", stopping.patience, 0)
-    return stopping
+def _section(name: str, cls: Any, table: Mapping[str, Any], **fixed: Any) -> Any:
+    allowed = tuple(f.name for f in dataclasses.fields(cls) if f.name not in fixed)
+    _check_keys(f"{name}.", table, allowed)
+    return cls(**fixed, **table)
+
+
+def _require_choice(key: str, value: str, allowed: tuple[str, ...]) -> None:
+    if value not in allowed:
+        hint = closest(value, allowed)
+        extra = f"; did you mean '{hint}'?" if hint else ""
+        raise SectionError(key, f"must be one of {', '.join(allowed)}, got {value!r}{extra}")
+
+
+def _require_min(key: str, value: int, low: int) -> None:
+    if value < low:
+        raise SectionError(key, f"must be at least {low}, got {value}")
+
+
+def _parse_study(table: Mapping[str, Any]) -> StudySection:
+    if "name" not in table:
+        raise SectionError("study.name", "missing; give the study a name")
+    return _section("study", StudySection, table)
+
+
+def _parse_training(table: Mapping[str, Any]) -> TrainingSection:
+    own = {key: value for key, value in table.items() if key in ("epochs", "threads")}
+    defaults = {key: value for key, value in table.items() if key not in own}
+    return _section("training", TrainingSection, own, defaults=defaults)
 
 
 def budget_of(spec: Spec) -> int:

@@ -8,8 +8,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
-from sweeper.spec.did_you_mean import closest
 
 if TYPE_CHECKING:  # optuna loads on first use: reading a spec should not wait for it
     import optuna

@@ -56,7 +56,7 @@ class SweepResult:
 
 def _task_attrs(spec: Spec) -> tuple[dict | None, str, str]:
     if spec.is_objective_plugin:
-        return None, "objective", f"objective plugin {spec.task['function']}"
+        return None, "objective", f"objective plugin {spec.task.function}"
     task = build_spec_task(spec)
     baseline = task.baseline()
     data = {

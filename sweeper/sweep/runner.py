@@ -20,7 +20,7 @@ from sweeper.spec.space import draw
 from sweeper.store import checkpoints, epoch_rows
 from sweeper.tasks.base import Task
 from sweeper.training.epoch_record import EpochRecord
-from sweeper.training.model_plugin import model_builder
+from sweeper.training.model_plugin import section_model_builder
 from sweeper.training.params import TrialParams
 from sweeper.training.trial_run import TrialRun, divergence_reason
 
@@ -104,7 +104,7 @@ def _run_training(
     training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
     trial.set_user_attr("training", training.as_dict())
     trial.set_user_attr("threads", torch.get_num_threads())  # replay needs the same count
-    build = model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
+    build = section_model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
     run = TrialRun(ctx.task, training, seed, build)
     _continue_from_checkpoint(trial, ctx, run, origin)
     compute = sum(record.seconds for record in run.records)

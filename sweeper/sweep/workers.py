@@ -15,7 +15,7 @@ import torch
 from optuna.storages._heartbeat import get_heartbeat_thread
 from optuna.trial import TrialState
 
-from sweeper.spec.checks import build_spec_task
+from sweeper.spec.checks import build_spec_task, load_objective_of
 from sweeper.spec.sections import Spec
 from sweeper.store import checkpoints
 from sweeper.store.connect import backend_of, engine_of, redact, retry_locked, set_heartbeat
@@ -39,7 +39,6 @@ from sweeper.sweep.study import (
     stop_requested,
     tally,
 )
-from sweeper.tasks.objective import load_objective
 from sweeper.training.trial_run import TrainingInterrupted
 
 IDLE_POLL_SECONDS = 0.1  # a poll takes about 1.5 ms; the last trial's end is seen sooner
@@ -204,13 +203,7 @@ def _context(
     )
     context.should_stop = stop_event.is_set
     if spec.is_objective_plugin:
-        context.objective = load_objective(
-            spec.task["function"],
-            spec.base_dir,
-            spec.source,
-            "task.function",
-            path=spec.task.get("path", "."),
-        )
+        context.objective = load_objective_of(spec)
     else:
         context.task = build_spec_task(spec)
     return context

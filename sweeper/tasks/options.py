@@ -8,13 +8,13 @@ builds it; the dataclass checks ranges in ``__post_init__`` by raising ``OptionE
 from __future__ import annotations
 
 import dataclasses
-import difflib
 import types
 import typing
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
+from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
 from sweeper.seeds import derive_seed
 
@@ -33,8 +33,8 @@ class OptionError(ValueError):
 def unknown_key_message(key: str, valid: Iterable[str], what: str) -> str:
     """One line that rejects ``key`` and suggests the nearest valid name."""
     names = sorted(valid)
-    close = difflib.get_close_matches(key, names, n=1, cutoff=0.5)
-    hint = f"did you mean {close[0]!r}? " if close else ""
+    close = closest(key, names)
+    hint = f"did you mean {close!r}? " if close else ""
     return f"unknown {what} {key!r}; {hint}valid: {', '.join(names)}"
 
 

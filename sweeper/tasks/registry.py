@@ -15,6 +15,7 @@ from sweeper.errors import SpecError
 from sweeper.tasks import adding, copy_memory, plugin, reber, recall, sequences, series, text
 from sweeper.tasks.base import Task
 from sweeper.tasks.options import unknown_key_message
+from sweeper.tasks.section import TaskSection, task_section
 
 _BUILDERS: dict[str, Callable[[Mapping[str, Any], Path, str], Task]] = {
     "adding": adding.build,
@@ -27,20 +28,21 @@ _BUILDERS: dict[str, Callable[[Mapping[str, Any], Path, str], Task]] = {
     "plugin": plugin.build,
 }
 TASK_KINDS = tuple(_BUILDERS)
-MODEL_KEYS = ("model", "model_path")
 
 
-def build_task(options: Mapping[str, Any], base_dir: Path, source: str) -> Task:
-    """The task described by ``options`` (a spec's ``[task]`` table).
+def build_task(table: Mapping[str, Any], base_dir: Path, source: str) -> Task:
+    """The task described by ``table`` (a spec's ``[task]`` table).
 
     Relative data paths resolve against ``base_dir``; errors name ``source`` and the key.
     """
-    kind = options.get("kind")
-    if kind is None:
+    if "kind" not in table:
         raise SpecError(source, "task.kind", f"required: one of {', '.join(TASK_KINDS)}")
-    if not isinstance(kind, str):
-        raise SpecError(source, "task.kind", f"must be a string, got {kind!r}")
-    if kind not in _BUILDERS:
-        raise SpecError(source, "task.kind", unknown_key_message(kind, TASK_KINDS, "task kind"))
-    rest = {key: value for key, value in options.items() if key not in (*MODEL_KEYS, "kind")}
-    return _BUILDERS[kind](rest, base_dir, source)
+    return build_section_task(task_section(table, source), base_dir, source)
+
+
+def build_section_task(section: TaskSection, base_dir: Path, source: str) -> Task:
+    """The task of a parsed ``[task]`` section; its family checks the options."""
+    if section.kind not in _BUILDERS:
+        message = unknown_key_message(section.kind, TASK_KINDS, "task kind")
+        raise SpecError(source, "task.kind", message)
+    return _BUILDERS[section.kind](section.options, base_dir, source)

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import csv
-import difflib
 import io
 import math
 from dataclasses import dataclass
@@ -11,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
+from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
 from sweeper.tasks.files import read_utf8
 
@@ -47,8 +47,8 @@ class Table:
     def _check_column(self, name: str, source: str, key: str) -> None:
         if name in self.columns:
             return
-        close = difflib.get_close_matches(name, self.columns, n=1)
-        hint = f"did you mean {close[0]!r}? " if close else ""
+        close = closest(name, self.columns)
+        hint = f"did you mean {close!r}? " if close else ""
         raise SpecError(
             source,
             key,

@@ -17,7 +17,7 @@ is looked for in ``model_path`` (relative to the spec, default its folder) first
 from __future__ import annotations
 
 import inspect
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, cast
@@ -28,7 +28,8 @@ from torch import nn
 from sweeper.errors import SpecError
 from sweeper.tasks.base import Task
 from sweeper.tasks.loader import import_ref, plugin_folder
-from sweeper.tasks.registry import MODEL_KEYS, build_task
+from sweeper.tasks.registry import build_section_task
+from sweeper.tasks.section import TaskSection
 from sweeper.training.models import ModelBuilder, Recurrent, build_model
 from sweeper.training.params import TrialParams
 
@@ -62,22 +63,22 @@ class PluginBuilder:
         return cast(Recurrent, model)  # checked just above
 
 
-def task_options_without_model(options: Mapping[str, Any]) -> dict[str, Any]:
-    """The ``[task]`` table less the model keys, which belong to no task kind."""
-    return {key: value for key, value in options.items() if key not in MODEL_KEYS}
-
-
-def model_builder(options: Mapping[str, Any], base_dir: Path, source: str) -> ModelBuilder:
-    """The builder named by ``[task] model``, or the built-in recurrent model."""
-    ref = options.get("model")
-    if ref is None:
-        if "model_path" in options:
-            raise SpecError(source, "task.model_path", "set only with model = 'module:function'")
+def model_builder(
+    model: str | None, model_path: str | None, base_dir: Path, source: str
+) -> ModelBuilder:
+    """The builder named by ``[task] model`` (looked for in ``model_path``), or the built-in
+    recurrent model when there is none."""
+    if model is None:
         return build_model
-    folder = plugin_folder(options.get("model_path", "."), base_dir, source, "task.model_path")
-    function = import_ref(ref, folder, source, "task.model")
-    _check_signature(function, ref, source)
-    return PluginBuilder(function, ref, folder, source)
+    folder = plugin_folder(model_path or ".", base_dir, source, "task.model_path")
+    function = import_ref(model, folder, source, "task.model")
+    _check_signature(function, model, source)
+    return PluginBuilder(function, model, folder, source)
+
+
+def section_model_builder(section: TaskSection, base_dir: Path, source: str) -> ModelBuilder:
+    """The model builder a parsed ``[task]`` section names."""
+    return model_builder(section.model, section.model_path, base_dir, source)
 
 
 def _check_signature(function: Callable[..., Any], ref: str, source: str) -> None:
@@ -129,9 +130,9 @@ def check_model(builder: ModelBuilder, task: Task, source: str) -> None:
         )
 
 
-def build_task_with_model(options: Mapping[str, Any], base_dir: Path, source: str) -> Task:
-    """The task of a ``[task]`` table, checked against the model that table names."""
-    builder = model_builder(options, base_dir, source)
-    task = build_task(options, base_dir, source)
+def build_task_with_model(section: TaskSection, base_dir: Path, source: str) -> Task:
+    """The task of a ``[task]`` section, checked against the model that section names."""
+    builder = section_model_builder(section, base_dir, source)
+    task = build_section_task(section, base_dir, source)
     check_model(builder, task, source)
     return task
