@@ -61,13 +61,14 @@ import sys, time, torch
 from sweeper.training.params import TrialParams
 from sweeper.spec.loading import load_spec
 from sweeper.tasks.registry import build_section_task
-from sweeper.training.trial_run import train
+from sweeper.training.epoch_loop import run_epochs
+from sweeper.training.trial_run import TrialRun
 torch.set_num_threads(1)
 spec = load_spec(sys.argv[1])
 task = build_section_task(spec.task, spec.base_dir, spec.source)
 params = TrialParams.from_mapping({**spec.training.defaults, "lr": 0.01})
 started = time.perf_counter()
-train(task, params, spec.training.epochs, seed=1)
+run_epochs(TrialRun(task, params, seed=1), spec.training.epochs)
 print(time.perf_counter() - started)
 """
 

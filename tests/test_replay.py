@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+import math
 import sqlite3
 from pathlib import Path
 
@@ -123,3 +125,27 @@ def test_objective_plugin_studies_cannot_be_replayed(in_tmp: Path) -> None:
     assert invoke("run", spec.name, "--report", "b.html").exit_code == 0
     result = invoke("replay", "runs/bowl.db", "0")
     assert result.exit_code == 2 and "objective plugin" in result.output
+
+
+def test_a_replay_that_diverges_early_still_compares_every_recorded_epoch(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp)
+    with sqlite3.connect(db) as connection:
+        (stored,) = connection.execute(
+            "SELECT value_json FROM trial_user_attributes WHERE trial_id = "
+            "(SELECT trial_id FROM trials WHERE number = 0) AND key = 'training'"
+        ).fetchone()
+        training = {**json.loads(stored), "optimizer": "sgd", "lr": 1e12, "momentum": 0.9}
+        training["clip"] = 0.0
+        connection.execute(
+            "UPDATE trial_user_attributes SET value_json = ? WHERE key = 'training' AND "
+            "trial_id = (SELECT trial_id FROM trials WHERE number = 0)",
+            (json.dumps(training),),
+        )
+    result = invoke("replay", str(db), "0")
+    assert result.exit_code == 1
+    lines = result.output.splitlines()
+    rows = [line.split() for line in lines]
+    assert [row[0] for row in rows if row[1:2] == ["train_loss"]] == ["1", "2", "3"]
+    first_valid = next(row for row in rows if row[:1] == ["valid_loss"])
+    assert not math.isfinite(float(first_valid[2]))  # the replay diverged in its first epoch
+    assert lines[-1].startswith("differ: 3 of 3 epochs disagree; the first is epoch 1 (")

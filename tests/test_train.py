@@ -15,6 +15,7 @@ import torch
 import torch.nn.functional as F
 
 from sweeper.tasks.base import Baseline, Kind, SequenceSet, Split, Task
+from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.models import build_model
 from sweeper.training.params import CELLS, TrialParams
@@ -25,7 +26,6 @@ from sweeper.training.trial_run import (
     clip_gradients,
     divergence_reason,
     step_losses,
-    train,
     weighted_mean,
 )
 
@@ -123,6 +123,13 @@ def timeless(records: tuple[EpochRecord, ...]) -> list[dict[str, object]]:
     return [
         dataclasses.replace(r, seconds=0.0, sequences_per_second=0.0).as_dict() for r in records
     ]
+
+
+def trained(task: Task, params: TrialParams, epochs: int, seed: int) -> tuple[EpochRecord, ...]:
+    """The records of a fresh run through the one epoch loop."""
+    run = TrialRun(task, params, seed)
+    run_epochs(run, epochs)
+    return run.records
 
 
 @contextmanager
@@ -340,28 +347,12 @@ def test_only_an_unroll_that_spans_the_delay_learns_recall() -> None:
     with one_thread():
         for unroll in (32, 2):
             params = TrialParams(unroll=unroll, hidden=64, lr=1e-2, clip=1.0, cell="lstm")
-            result = train(task, params, epochs=8, seed=0)
-            accuracy[unroll] = result.records[-1].valid_metric
+            accuracy[unroll] = trained(task, params, epochs=8, seed=0)[-1].valid_metric
     assert accuracy[32] >= 0.95
     assert accuracy[2] <= 0.4  # chance is 1/4
 
 
 # --- divergence -------------------------------------------------------------------------
-
-
-def test_huge_learning_rate_diverges_and_ends_the_trial() -> None:
-    task = regression_task(n=64, length=10)
-    params = sgd(cell="elman", lr=1e12, momentum=0.9, batch=8, unroll=5)
-    seen: list[EpochRecord] = []
-    result = train(task, params, epochs=5, seed=0, on_epoch=seen.append)
-    assert result.diverged
-    assert len(result.records) == 1 and list(result.records) == seen
-    record = result.records[0]
-    assert 0 < record.nonfinite_steps <= record.steps == 16
-    assert result.end_reason == divergence_reason(record)
-    assert result.end_reason is not None
-    assert result.end_reason.startswith("diverged at epoch 1: ")
-    assert "non-finite step" in result.end_reason
 
 
 def test_a_non_finite_step_is_counted_and_skipped() -> None:
@@ -398,13 +389,6 @@ def test_divergence_reason_names_the_epoch_and_the_cause() -> None:
     )
 
 
-def test_healthy_training_runs_every_epoch() -> None:
-    result = train(regression_task(n=12), sgd(unroll=4, batch=4), epochs=3, seed=0)
-    assert not result.diverged and result.end_reason is None
-    assert [r.epoch for r in result.records] == [1, 2, 3]
-    assert result.records[-1].train_loss < result.records[0].train_loss
-
-
 # --- determinism and resume -------------------------------------------------------------
 
 LIVELY = TrialParams(unroll=4, hidden=8, layers=2, dropout=0.3, batch=4, clip=0.5, lr=1e-2)
@@ -412,10 +396,10 @@ LIVELY = TrialParams(unroll=4, hidden=8, layers=2, dropout=0.3, batch=4, clip=0.
 
 def test_same_parameters_and_seed_give_the_same_records() -> None:
     task = regression_task(n=10)
-    first = train(task, LIVELY, epochs=3, seed=7).records
+    first = trained(task, LIVELY, epochs=3, seed=7)
     torch.rand(5)  # moves the caller's stream; the trial's own streams must not care
-    second = train(task, LIVELY, epochs=3, seed=7).records
-    other = train(task, LIVELY, epochs=3, seed=8).records
+    second = trained(task, LIVELY, epochs=3, seed=7)
+    other = trained(task, LIVELY, epochs=3, seed=8)
     assert timeless(first) == timeless(second)
     assert timeless(first) != timeless(other)
 
@@ -485,18 +469,6 @@ def test_should_stop_interrupts_at_a_window_boundary() -> None:
     assert run.epoch == 1
     with pytest.raises(RuntimeError, match="interrupted"):
         run.state_dict()
-
-
-def test_on_epoch_can_end_the_trial() -> None:
-    class Pruned(Exception):
-        pass
-
-    def prune(record: EpochRecord) -> None:
-        if record.epoch == 2:
-            raise Pruned
-
-    with pytest.raises(Pruned):
-        train(regression_task(), sgd(unroll=4), epochs=5, seed=0, on_epoch=prune)
 
 
 def test_gradient_statistics_match_numpy_on_the_recorded_norms() -> None:

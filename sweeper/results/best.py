@@ -27,9 +27,10 @@ from sweeper.results.stored_trial import (
 from sweeper.spec.sections import Spec
 from sweeper.tasks.base import Baseline, Task
 from sweeper.tasks.refit import RefitTask
+from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.models import ModelBuilder
-from sweeper.training.trial_run import TrialRun, divergence_reason
+from sweeper.training.trial_run import TrialRun
 
 
 def best_trial(study: optuna.Study) -> FrozenTrial:
@@ -109,13 +110,9 @@ def refit_best(
     epochs = _epochs(trial, spec)
     with torch_threads(sweep_threads(spec)):
         run = TrialRun(refit, stored.params, stored.seed, build)
-        for _ in range(epochs):
-            record = run.run_epoch()
-            if on_epoch is not None:
-                on_epoch(record)
-            reason = divergence_reason(record)
-            if reason is not None:
-                raise RunFailure(f"the final fit of trial {trial.number} {reason}; nothing saved")
+        end = run_epochs(run, epochs, on_epoch=[] if on_epoch is None else [on_epoch])
+    if end.how == "diverged":
+        raise RunFailure(f"the final fit of trial {trial.number} {end.reason}; nothing saved")
     return Refit(spec, stored, epochs, task, refit, build, run)
 
 

@@ -27,6 +27,8 @@ from sweeper.results.stored_trial import (
 from sweeper.spec.sections import Spec
 from sweeper.store import epoch_rows
 from sweeper.store.connect import engine_of
+from sweeper.training.epoch_loop import run_epochs
+from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.trial_run import TrialRun
 
 SHOWN = ("train_loss", "valid_loss", "valid_metric")
@@ -87,16 +89,21 @@ def run_replay(
     """Train the trial for as many epochs as it recorded, with the sweep's thread count."""
     task, build = training_setup(plan.spec)
     comparisons: list[EpochComparison] = []
+
+    def compare(record: EpochRecord) -> None:
+        row, replayed = plan.recorded[record.epoch - 1], record.as_dict()
+        comparison = EpochComparison(
+            row["epoch"], {k: row[k] for k in COMPARED}, {k: replayed[k] for k in COMPARED}
+        )
+        comparisons.append(comparison)
+        if on_epoch is not None:
+            on_epoch(comparison)
+
     with torch_threads(plan.threads):
         run = TrialRun(task, plan.stored.params, plan.stored.seed, build)
-        for row in plan.recorded:
-            record = run.run_epoch().as_dict()
-            comparison = EpochComparison(
-                row["epoch"], {k: row[k] for k in COMPARED}, {k: record[k] for k in COMPARED}
-            )
-            comparisons.append(comparison)
-            if on_epoch is not None:
-                on_epoch(comparison)
+        # every recorded epoch is compared, even past a divergence the record does not have
+        while run.epoch < len(plan.recorded):
+            run_epochs(run, len(plan.recorded), on_epoch=[compare])
     return tuple(comparisons)
 
 

@@ -19,10 +19,11 @@ from sweeper.spec.sections import Spec
 from sweeper.spec.space import draw
 from sweeper.store import checkpoints, epoch_rows
 from sweeper.tasks.base import Task
+from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.model_plugin import section_model_builder
 from sweeper.training.params import TrialParams
-from sweeper.training.trial_run import TrialRun, divergence_reason
+from sweeper.training.trial_run import TrialRun
 
 Objective = Callable[[dict[str, Any], Callable[[int, float], None]], float]
 TRACEBACK_LINES = 12
@@ -97,6 +98,35 @@ def _continue_from_checkpoint(
     trial.set_user_attr("compute_seconds", sum(record.seconds for record in run.records))
 
 
+class EpochReporter:
+    """What a sweep does after each epoch of a trial, in the order studies rely on.
+
+    ``record``: the epoch row, the checkpoint, then the ``epochs`` and ``compute_seconds``
+    attributes, before anything can end the trial. ``stop_reason`` (healthy epochs only): the
+    intermediate value, then the stopping rule's question.
+    """
+
+    def __init__(self, trial: optuna.Trial, ctx: TrialContext, run: TrialRun, origin: int) -> None:
+        self._trial, self._ctx, self._run, self._origin = trial, ctx, run, origin
+        self.compute = sum(record.seconds for record in run.records)
+        self.value = objective_value(ctx.spec, run.records[-1]) if run.records else math.nan
+
+    def record(self, record: EpochRecord) -> None:
+        ctx, trial, epoch = self._ctx, self._trial, record.epoch
+        epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
+        checkpoints.save(ctx.engine, ctx.study_name, self._origin, epoch, self._run.state_dict())
+        self.compute += record.seconds
+        trial.set_user_attr("epochs", epoch)
+        trial.set_user_attr("compute_seconds", self.compute)
+
+    def stop_reason(self, record: EpochRecord) -> str | None:
+        self.value = objective_value(self._ctx.spec, record)
+        self._trial.report(self.value, record.epoch)
+        if _may_stop(self._ctx.spec, record.epoch) and self._trial.should_prune():
+            return f"stopped early after epoch {record.epoch}"
+        return None
+
+
 def _run_training(
     trial: optuna.Trial, ctx: TrialContext, params: dict, seed: int, origin: int
 ) -> float:
@@ -107,32 +137,26 @@ def _run_training(
     build = section_model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
     run = TrialRun(ctx.task, training, seed, build)
     _continue_from_checkpoint(trial, ctx, run, origin)
-    compute = sum(record.seconds for record in run.records)
-    value = objective_value(ctx.spec, run.records[-1]) if run.records else math.nan
-    for epoch in range(run.epoch + 1, ctx.spec.training.epochs + 1):
-        # train one epoch, then record it and save the state before anything can stop the trial
-        record = run.run_epoch(ctx.should_stop)
-        epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
-        checkpoints.save(ctx.engine, ctx.study_name, origin, epoch, run.state_dict())
-        compute += record.seconds
-        trial.set_user_attr("epochs", epoch)
-        trial.set_user_attr("compute_seconds", compute)
-        # diverged: the sampler must learn that this region is bad
-        reason = divergence_reason(record)
-        if reason is not None:
-            trial.set_user_attr("diverged", True)
-            trial.set_user_attr("end_reason", reason)
-            trial.report(worst_value(ctx.spec), epoch)
-            trial.should_prune()  # the stopping rule records it too (ASHA ranks it in its rung)
-            raise optuna.TrialPruned(reason)
-        value = objective_value(ctx.spec, record)
-        trial.report(value, epoch)
-        if _may_stop(ctx.spec, epoch) and trial.should_prune():
-            reason = f"stopped early after epoch {epoch}"
-            trial.set_user_attr("end_reason", reason)
-            raise optuna.TrialPruned(reason)
+    reporter = EpochReporter(trial, ctx, run, origin)
+    end = run_epochs(
+        run,
+        ctx.spec.training.epochs,
+        on_epoch=[reporter.record],
+        stop_after=reporter.stop_reason,
+        should_stop=ctx.should_stop,
+    )
+    if end.how == "diverged":
+        # the sampler must learn that this region is bad
+        trial.set_user_attr("diverged", True)
+        trial.set_user_attr("end_reason", end.reason)
+        trial.report(worst_value(ctx.spec), end.epoch)
+        trial.should_prune()  # the stopping rule records it too (ASHA ranks it in its rung)
+        raise optuna.TrialPruned(end.reason)
+    if end.how == "stopped":
+        trial.set_user_attr("end_reason", end.reason)
+        raise optuna.TrialPruned(end.reason)
     trial.set_user_attr("end_reason", "completed")
-    return value
+    return reporter.value
 
 
 def _may_stop(spec: Spec, epoch: int) -> bool:

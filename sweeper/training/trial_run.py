@@ -39,15 +39,6 @@ class TrainingInterrupted(Interrupted):
         super().__init__(f"training was asked to stop during epoch {epoch}")
 
 
-@dataclass(frozen=True)
-class TrainResult:
-    """The records of a finished run and why it ended early (``None`` if it did not)."""
-
-    records: tuple[EpochRecord, ...]
-    end_reason: str | None
-    diverged: bool
-
-
 def _never() -> bool:
     return False
 
@@ -123,7 +114,7 @@ class _Tally:
 
 
 class TrialRun:
-    """One trial, an epoch at a time: ``run_epoch()`` until done; ``state_dict()`` between."""
+    """One trial, an epoch at a time (``run_epochs`` drives it); ``state_dict()`` between."""
 
     def __init__(
         self, task: Task, params: TrialParams, seed: int, build: ModelBuilder = build_model
@@ -313,30 +304,6 @@ class TrialRun:
             self._rng = _global_rng()
         finally:
             _set_global_rng(outside)
-
-
-def train(
-    task: Task,
-    params: TrialParams,
-    epochs: int,
-    seed: int,
-    on_epoch: Callable[[EpochRecord], None] | None = None,
-    should_stop: Callable[[], bool] = _never,
-) -> TrainResult:
-    """Run up to ``epochs`` epochs; stop after the first diverged one.
-
-    ``on_epoch`` sees every record, the diverged one included; what it raises propagates.
-    """
-    run = TrialRun(task, params, seed)
-    reason = None
-    for _ in range(epochs):
-        record = run.run_epoch(should_stop)
-        if on_epoch is not None:
-            on_epoch(record)
-        reason = divergence_reason(record)
-        if reason is not None:
-            break
-    return TrainResult(run.records, reason, reason is not None)
 
 
 def _contiguous(data: SequenceSet) -> SequenceSet:
