@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from sweeper.sweep import coordinator as coordinating
 from sweeper.spec.loading import load_spec
+from sweeper.sweep import coordinator as coordinating
 from sweeper.sweep.coordinator import Coordinator, _queue_short
 from sweeper.sweep.launcher import open_for_launch
 from sweeper.sweep.progress import ProgressDisplay, Snapshot
