@@ -141,7 +141,8 @@ def test_optuna_fails_a_trial_silent_for_stale_after(storage_location: str) -> N
     storage.record_heartbeat(claimed)
     fail_stale_trials(study)
     assert _states(study) == [TrialState.RUNNING]  # one beat ago: alive
-    time.sleep(timing.stale_after + 0.5)
+    # SQLite's clock (CURRENT_TIMESTAMP) counts whole seconds: wait one more
+    time.sleep(timing.stale_after + 1.5)
     fail_stale_trials(study)
     assert _states(study) == [TrialState.FAIL, TrialState.WAITING]  # failed, and retried
 
