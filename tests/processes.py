@@ -10,6 +10,10 @@ from collections.abc import Callable
 from pathlib import Path
 
 import optuna
+import sqlalchemy as sa
+
+from sweeper.store import checkpoints, epoch_rows
+from sweeper.store.connect import sqlite_path, storage_url
 
 
 def start(folder: Path, *args: str) -> subprocess.Popen[str]:
@@ -104,3 +108,62 @@ def trials_at(location: str, name: str) -> list[optuna.trial.FrozenTrial]:
 
     study = optuna.load_study(study_name=name, storage=open_storage(location, create=False))
     return study.get_trials()
+
+
+# The same views of a study at any storage location (a .db path or a PostgreSQL URL). A plain
+# engine, not open_storage: creating optuna's tables here would race the launcher's.
+_ENGINES: dict[str, sa.Engine] = {}
+
+
+def _engine(location: str) -> sa.Engine | None:
+    url = storage_url(location)
+    path = sqlite_path(url)
+    if path is not None and not path.exists():
+        return None  # not created yet; connecting would create an empty file
+    if url not in _ENGINES:
+        _ENGINES[url] = sa.create_engine(url)
+    return _ENGINES[url]
+
+
+def _has(engine: sa.Engine | None, table: str) -> bool:
+    return engine is not None and sa.inspect(engine).has_table(table)
+
+
+def epoch_count_at(location: str, name: str) -> int:
+    engine = _engine(location)
+    if engine is None or not _has(engine, "sweeper_epochs"):
+        return 0
+    return len(epoch_rows.read_epochs(engine, name))
+
+
+def checkpoint_epochs_at(location: str, name: str) -> dict[int, int]:
+    engine = _engine(location)
+    if engine is None or not _has(engine, "sweeper_checkpoints"):
+        return {}
+    return checkpoints.stored(engine, name)
+
+
+def curves_at(location: str, name: str) -> dict[int, list[tuple]]:
+    """``curves`` at any location."""
+    engine = _engine(location)
+    assert engine is not None, f"no study at {location}"
+    out: dict[int, list[tuple]] = {}
+    for row in epoch_rows.read_epochs(engine, name):
+        values = tuple(row[key] for key in CURVE_COLUMNS)
+        out.setdefault(int(row["trial_number"]), []).append(values)
+    return out
+
+
+CURVE_COLUMNS = (
+    "epoch",
+    "train_loss",
+    "valid_loss",
+    "valid_metric",
+    "grad_norm_mean",
+    "grad_norm_median",
+    "grad_norm_p95",
+    "grad_norm_max",
+    "clip_fraction",
+    "nonfinite_steps",
+    "steps",
+)

@@ -35,8 +35,11 @@ def test_short_queue(budget: int, finished: int, running: int, waiting: int, sho
     assert _queue_short(_snapshot(budget, finished, running, waiting), workers=2) == short
 
 
-def test_no_step_before_it_is_due(in_tmp: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_no_step_before_it_is_due(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch, storage_location: str
+) -> None:
     spec = load_spec(write_tiny_spec(in_tmp, trials=3, epochs=1))
+    spec = spec.with_overrides(storage=storage_location)
     coordinator = Coordinator(open_for_launch(spec), spec, ProgressDisplay(interval=0))
     try:
         assert coordinator.step().counts.waiting == 3

@@ -10,6 +10,7 @@ from pathlib import Path
 import pytest
 from optuna.trial import TrialState
 
+from sweeper.store.connect import redact
 from tests import processes as proc
 
 SPEC = """
@@ -62,23 +63,35 @@ def _finished_once(trials: list) -> None:
     assert len(origins) == len(set(origins)), origins
 
 
+@pytest.fixture
+def study_location(storage_location: str) -> str:
+    """The spec's default SQLite file (relative, as the resume hint prints it), or the URL of
+    ``storage_location``'s PostgreSQL database."""
+    return f"runs{os.sep}r.db" if storage_location.endswith(".db") else storage_location
+
+
+def _at(location: str) -> tuple[str, ...]:
+    """The ``--storage`` option a run needs to use ``location`` instead of the default."""
+    return () if location.endswith(".db") else ("--storage", location)
+
+
 @pytest.mark.parametrize(("sig", "workers"), [(signal.SIGINT, 1), (signal.SIGTERM, 2)])
 def test_signal_exits_130_quickly_then_resume_completes(
-    tmp_path: Path, sig: int, workers: int
+    tmp_path: Path, sig: int, workers: int, study_location: str
 ) -> None:
     spec = _spec(tmp_path, trials=3, workers=workers)
-    db = tmp_path / "runs" / "r.db"
-    launcher = proc.start(tmp_path, "run", spec.name)
-    proc.wait_for(lambda: proc.epoch_count(db) >= 1, 120, "a first epoch")
+    where = study_location if "://" in study_location else str(tmp_path / study_location)
+    launcher = proc.start(tmp_path, "run", spec.name, *_at(study_location))
+    proc.wait_for(lambda: proc.epoch_count_at(where, "r") >= 1, 120, "a first epoch")
     sent = time.monotonic()
     launcher.send_signal(sig)
     assert launcher.wait(timeout=30) == 130
     assert time.monotonic() - sent < 10
-    assert f"sweeper resume runs{os.sep}r.db" in (tmp_path / "stderr.txt").read_text()
+    assert f"sweeper resume {redact(study_location)}" in (tmp_path / "stderr.txt").read_text()
 
-    resumed = proc.run(tmp_path, "resume", "runs/r.db")
+    resumed = proc.run(tmp_path, "resume", study_location)
     assert resumed.returncode == 0, resumed.stderr
-    trials = proc.trials(db, "r")
+    trials = proc.trials_at(where, "r")
     assert sum(t.state == TrialState.COMPLETE for t in trials) == 3
     _finished_once(trials)
     interrupted = [t for t in trials if t.user_attrs.get("interrupted")]
@@ -92,7 +105,7 @@ def test_signal_exits_130_quickly_then_resume_completes(
     for trial in continued:  # each goes on from the last epoch its original completed
         done = by_number[trial.user_attrs["retry_of"]].user_attrs.get("epochs", 0)
         assert trial.user_attrs.get("resumed_from_epoch", 0) == done
-    assert proc.checkpoint_epochs(db) == {}, "finished trials keep no checkpoint"
+    assert proc.checkpoint_epochs_at(where, "r") == {}, "finished trials keep no checkpoint"
 
 
 def test_killed_trial_continues_bit_for_bit(tmp_path: Path) -> None:
@@ -202,18 +215,20 @@ class _WorkerDied(BaseException):
 
 
 def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
-    in_tmp: Path, monkeypatch: pytest.MonkeyPatch
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch, storage_location: str
 ) -> None:
     from optuna.storages import RetryHeartbeatStaleTrialCallback
 
     from sweeper.spec.loading import load_spec
     from sweeper.store import checkpoints
+    from sweeper.store.optuna_internals import fail_running, trial_id
     from sweeper.sweep import runner
     from sweeper.sweep.launcher import open_for_launch
     from sweeper.sweep.study import top_up
     from sweeper.sweep.workers import work
 
     spec = load_spec(_spec(in_tmp, trials=1, epochs=2, sequences=64))
+    spec = spec.with_overrides(storage=storage_location)
     study = open_for_launch(spec)
     top_up(study, spec)
     saved = checkpoints.save
@@ -230,7 +245,7 @@ def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
     (dead,) = study.get_trials()
     assert dead.state == TrialState.RUNNING and dead.user_attrs["epochs"] == 1
     # what the coordinator does with a trial whose heartbeat stopped
-    study._storage.set_trial_state_values(dead._trial_id, TrialState.FAIL)
+    assert fail_running(study, trial_id(dead))
     RetryHeartbeatStaleTrialCallback(max_retry=3)(study, study.get_trials()[0])
 
     work(spec.storage_location, "r", 0, threads=1)
@@ -240,22 +255,24 @@ def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
     assert retry.user_attrs["compute_seconds"] > 0
 
 
-def test_a_sweeps_end_drops_checkpoints_that_dead_workers_left(in_tmp: Path) -> None:
+def test_a_sweeps_end_drops_checkpoints_that_dead_workers_left(
+    in_tmp: Path, storage_location: str
+) -> None:
     from sweeper.store import checkpoints
     from sweeper.store.connect import open_storage
     from tests.conftest import invoke
 
     spec = _spec(in_tmp, trials=1, epochs=1, sequences=64)
-    assert invoke("run", spec.name).exit_code == 0
-    db = in_tmp / "runs" / "r.db"
-    engine = open_storage(str(db)).engine
+    assert invoke("run", spec.name, "--storage", storage_location).exit_code == 0
+    engine = open_storage(storage_location).engine
     # a worker killed between recording its trial's end and dropping the checkpoint
     checkpoints.save(engine, "r", 0, 1, {"epoch": 1})
     checkpoints.save(engine, "r", 1100, 1, {"epoch": 1})  # no such trial: left alone
-    assert invoke("run", spec.name, "--trials", "2").exit_code == 0
-    assert proc.checkpoint_epochs(db) == {1100: 1}
+    more = invoke("run", spec.name, "--trials", "2", "--storage", storage_location)
+    assert more.exit_code == 0
+    assert checkpoints.stored(engine, "r") == {1100: 1}
     checkpoints.drop(engine, "r", list(range(1200)))  # more numbers than one statement takes
-    assert proc.checkpoint_epochs(db) == {}
+    assert checkpoints.stored(engine, "r") == {}
 
 
 def test_a_double_ctrl_c_stops_pool_workers_at_once(tmp_path: Path) -> None:

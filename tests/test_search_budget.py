@@ -27,11 +27,10 @@ from sweeper.sweep.study import (
 REPO = Path(__file__).resolve().parents[1]
 
 
-def _spec(hours: float, trials: int = 100, workers: int = 1, folder: Path | None = None) -> Spec:
-    storage = f'storage = "{(folder / "budget.db").as_posix()}"\n' if folder else ""
+def _spec(hours: float, trials: int = 100, workers: int = 1) -> Spec:
     text = (
         f'[study]\nname = "budget"\ntrials = {trials}\nworkers = {workers}\n'
-        f"compute_hours = {hours!r}\n{storage}"
+        f"compute_hours = {hours!r}\n"
         f'[task]\nkind = "objective"\nfunction = "tests.test_search_budget:tenth_of_a_second"\n'
         f'path = "{REPO.as_posix()}"\n[search]\nx = {{ between = [0.0, 1.0] }}\n'
     )
@@ -90,17 +89,21 @@ def test_compute_hours_must_be_a_finite_positive_number(hours: float) -> None:
         _spec(hours=hours)
 
 
-def test_a_sweep_stops_launching_when_the_next_trial_would_overrun(tmp_path: Path) -> None:
-    limit = 0.55  # seconds: room for five trials of a tenth of a second, not six
-    spec = _spec(hours=limit / 3600, folder=tmp_path)
+def test_a_sweep_stops_launching_when_the_next_trial_would_overrun(storage_location: str) -> None:
+    # seconds: room for five trials of a tenth of a second, not six (on PostgreSQL about a
+    # quarter: an objective plugin's time includes its storage round trips)
+    limit = 0.55 if storage_location.endswith(".db") else 1.4
+    spec = _spec(hours=limit / 3600).with_overrides(storage=storage_location)
     run_sweep(spec, ProgressDisplay(io.StringIO()))
     study, stored = load_existing(spec.storage_location)
     trials = study.trials
     assert stored.study.compute_hours == spec.study.compute_hours
     assert all(t.state == TrialState.COMPLETE for t in trials)
-    spent = sum(compute_seconds(t) for t in trials)
+    costs = [compute_seconds(t) for t in trials]
+    spent, spread = sum(costs), max(costs) - min(costs)
     mean = spent / len(trials)
     assert 3 <= len(trials) < 100
-    assert spent <= limit + 0.02  # only a trial's overrun of its estimate goes past the limit
+    # only the last trial's overrun of the mean it was launched on goes past the limit
+    assert spent <= limit + 0.02 + spread
     assert spent + mean > limit  # and the next trial would not have fitted
     assert budget_met(trials, stored)

@@ -7,10 +7,11 @@ from pathlib import Path
 from optuna.trial import TrialState
 
 from sweeper.spec.loading import load_spec
-from sweeper.store.connect import backend_of
+from sweeper.store.heartbeat import HeartbeatTiming
+from sweeper.store.optuna_internals import claim_waiting_trial, rdb_storage, trial_id
 from sweeper.sweep.coordinator import Coordinator
 from sweeper.sweep.launcher import open_for_launch
-from sweeper.sweep.lost_claims import fail_unstarted_trials, grace_seconds
+from sweeper.sweep.lost_claims import fail_unstarted_trials
 from sweeper.sweep.progress import ProgressDisplay
 from tests.conftest import write_tiny_spec
 
@@ -23,14 +24,15 @@ def test_claimed_without_a_heartbeat_is_failed_and_retried(
     coordinator = Coordinator(study, spec, ProgressDisplay(interval=0))  # sets up the retries
     try:
         coordinator.step()
-        dead = study._pop_waiting_trial_id()  # claimed; its worker dies at once
-        alive = study._pop_waiting_trial_id()
-        backend_of(study).record_heartbeat(alive)
+        dead = claim_waiting_trial(study)  # claimed; its worker dies at once
+        alive = claim_waiting_trial(study)
+        assert dead is not None and alive is not None
+        rdb_storage(study).record_heartbeat(alive)
         assert fail_unstarted_trials(study, grace=3600.0) == []  # too soon to tell
         assert fail_unstarted_trials(study, grace=0.0) == [0]
     finally:
         coordinator.close()
-    by_id = {t._trial_id: t for t in study.get_trials()}
+    by_id = {trial_id(t): t for t in study.get_trials()}
     assert by_id[dead].state == TrialState.FAIL
     assert by_id[alive].state == TrialState.RUNNING  # it has a heartbeat
     (retry,) = [t for t in by_id.values() if t.state == TrialState.WAITING]
@@ -38,5 +40,5 @@ def test_claimed_without_a_heartbeat_is_failed_and_retried(
 
 
 def test_grace_leaves_room_for_clock_differences_between_hosts() -> None:
-    assert grace_seconds(1) == 30.0
-    assert grace_seconds(10) == 50.0
+    assert HeartbeatTiming(1).unstarted_after == 30.0
+    assert HeartbeatTiming(10).unstarted_after == 50.0

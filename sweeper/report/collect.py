@@ -24,6 +24,7 @@ from optuna.distributions import (
 from optuna.trial import FrozenTrial
 
 from sweeper.errors import InputError, StorageFailure, StudyNotFound
+from sweeper.store.attrs import StoredBaseline, StoredFailure, StudyInfo, TrialInfo
 from sweeper.store.connect import open_storage, redact
 from sweeper.store.epoch_rows import read_epochs
 from sweeper.store.tables import EPOCHS
@@ -196,37 +197,34 @@ def build_tables(
 def _summary(
     name: str, location: str, direction: Literal["minimize", "maximize"], attrs: Mapping[str, Any]
 ) -> StudySummary:
+    info = StudyInfo(attrs)
     return StudySummary(
         name=name,
         location=location,
         direction=direction,
-        objective=_text(attrs.get("objective", "value")),
-        metric_name=_text(attrs.get("metric_name", "")),
-        task=_text(attrs.get("task", "")),
-        task_description=_text(attrs.get("task_description", "")),
-        baseline=_baseline(attrs.get("baseline")),
-        budget=_int(attrs.get("budget")),
-        workers_planned=_int(attrs.get("workers")),
-        spec_text=_text(attrs.get("spec_text", "")),
-        spec_hash=_text(attrs.get("spec_hash", "")),
+        objective=_text(info.objective),
+        metric_name=_text(info.metric_name),
+        task=_text(info.task),
+        task_description=_text(info.task_description),
+        baseline=_baseline(info.baseline),
+        budget=info.budget,
+        workers_planned=info.workers,
+        spec_text=_text(info.spec_text),
+        spec_hash=_text(info.spec_hash),
     )
 
 
-def _baseline(raw: Any) -> Baseline | None:
-    if not isinstance(raw, Mapping):
+def _baseline(stored: StoredBaseline | None) -> Baseline | None:
+    if stored is None or not math.isfinite(stored.value):
         return None
-    value = _float(raw.get("value"))
-    if not math.isfinite(value):
-        return None
-    return Baseline(value, _text(raw.get("measure", "")), _text(raw.get("description", "")))
+    return Baseline(stored.value, _text(stored.measure), _text(stored.description))
 
 
 def _trial_row(trial: FrozenTrial) -> TrialRow:
-    attrs = trial.user_attrs
-    raw = attrs.get("training")
-    training: Mapping[str, Any] = raw if isinstance(raw, Mapping) else {}
+    info = TrialInfo.of(trial)
+    training = info.training or {}
     start, end = trial.datetime_start, trial.datetime_complete
-    seconds = _float(attrs.get("compute_seconds"))
+    seconds = math.nan if info.compute_seconds is None else info.compute_seconds
     if not math.isfinite(seconds) and start is not None and end is not None:
         seconds = (end - start).total_seconds()
     return TrialRow(
@@ -235,30 +233,26 @@ def _trial_row(trial: FrozenTrial) -> TrialRow:
         value=_float(trial.value),
         params={_text(k): _param_value(v) for k, v in trial.params.items()},
         distributions={_text(k): _redacted(v) for k, v in trial.distributions.items()},
-        epochs=_int(attrs.get("epochs")) or len(trial.intermediate_values),
+        epochs=info.epochs or len(trial.intermediate_values),
         seconds=seconds,
-        worker=_text(attrs.get("worker", "")),
+        worker=_text(info.worker),
         start=start,
         end=end,
-        end_reason=_text(attrs.get("end_reason", "")),
-        diverged=bool(attrs.get("diverged", False)),
-        failure=_failure(attrs.get("failure")),
-        retry_of=_int(attrs.get("retry_of")),
-        seed=_int(attrs.get("seed")),
+        end_reason=_text(info.end_reason),
+        diverged=info.diverged,
+        failure=_failure(info.failure),
+        retry_of=info.retry_of,
+        seed=info.seed,
         clip=_float(trial.params.get("clip", training.get("clip"))),
         lr=_float(trial.params.get("lr", training.get("lr"))),
         curve=tuple(sorted((int(k), _float(v)) for k, v in trial.intermediate_values.items())),
     )
 
 
-def _failure(raw: Any) -> Failure | None:
-    if not isinstance(raw, Mapping):
+def _failure(stored: StoredFailure | None) -> Failure | None:
+    if stored is None:
         return None
-    return Failure(
-        kind=_text(raw.get("type", "")),
-        message=_text(raw.get("message", "")),
-        traceback=_text(raw.get("traceback", "")),
-    )
+    return Failure(_text(stored.kind), _text(stored.message), _text(stored.traceback))
 
 
 def _param_infos(rows: Sequence[TrialRow]) -> tuple[ParamInfo, ...]:
@@ -322,9 +316,3 @@ def _float(value: Any) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float, np.number)):
         return math.nan
     return float(value)
-
-
-def _int(value: Any) -> int | None:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-        return None
-    return int(value)

@@ -25,6 +25,7 @@ from sweeper.results.stored_trial import (
     training_setup,
 )
 from sweeper.spec.sections import Spec
+from sweeper.store.attrs import StudyInfo, TrialInfo
 from sweeper.tasks.base import Baseline, Task
 from sweeper.tasks.refit import RefitTask
 from sweeper.training.epoch_loop import run_epochs
@@ -56,10 +57,11 @@ def toml_value(value: Any) -> str:
 def fragment(study: optuna.Study, spec: Spec) -> str:
     """The best parameters as TOML, headed by a comment that says where they come from."""
     trial = best_trial(study)
-    objective = study.user_attrs.get("objective", "value")
+    objective = StudyInfo.of(study).objective
+    epochs = TrialInfo.of(trial).epochs
     head = (
         f"# best of '{study.study_name}': trial {trial.number}, {objective} {trial.value!r}"
-        f" after {trial.user_attrs.get('epochs', '?')} epochs"
+        f" after {'?' if epochs is None else epochs} epochs"
     )
     if spec.is_objective_plugin:
         return _table(head, "search", trial.params)
@@ -74,8 +76,8 @@ def _table(head: str, name: str, values: Mapping[str, Any]) -> str:
 
 
 def _epochs(trial: FrozenTrial, spec: Spec) -> int:
-    epochs = trial.user_attrs.get("epochs")
-    return int(epochs) if isinstance(epochs, int) else spec.training.epochs
+    epochs = TrialInfo.of(trial).epochs
+    return spec.training.epochs if epochs is None else epochs
 
 
 @dataclass

@@ -26,6 +26,7 @@ from sweeper.results.stored_trial import (
 )
 from sweeper.spec.sections import Spec
 from sweeper.store import epoch_rows
+from sweeper.store.attrs import TrialInfo
 from sweeper.store.connect import engine_of
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
@@ -79,7 +80,7 @@ def plan_replay(study: optuna.Study, spec: Spec, number: int) -> ReplayPlan:
     if not recorded:
         raise InputError(f"trial {number} of '{study.study_name}' recorded no epoch to compare")
     # the thread count the trial ran with (recorded since it changes the floating-point sums)
-    threads = int(stored.trial.user_attrs.get("threads") or sweep_threads(spec))
+    threads = TrialInfo.of(stored.trial).threads or sweep_threads(spec)
     return ReplayPlan(spec, stored, recorded, threads)
 
 

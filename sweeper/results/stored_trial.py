@@ -14,6 +14,7 @@ from sweeper.errors import InputError
 from sweeper.seeds import trial_seed
 from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
+from sweeper.store.attrs import TrialInfo
 from sweeper.sweep.workers import default_threads
 from sweeper.tasks.base import Task
 from sweeper.training.model_plugin import section_model_builder
@@ -51,15 +52,17 @@ def stored_trial(study: optuna.Study, spec: Spec, trial: FrozenTrial) -> StoredT
             f"study '{study.study_name}' runs an objective plugin ({spec.task.function}); "
             "only trials that sweeper trains can be retrained"
         )
-    training = trial.user_attrs.get("training")
-    if not isinstance(training, dict):
+    info = TrialInfo.of(trial)
+    training = info.training
+    if training is None:
         raise InputError(
             f"trial {trial.number} of '{study.study_name}' never started training "
             f"(state {trial.state.name}); pick a trial that recorded epochs"
         )
-    seed = trial.user_attrs.get("seed")
-    if not isinstance(seed, int):
-        seed = trial_seed(spec.study.seed, int(trial.user_attrs.get("retry_of", trial.number)))
+    seed = info.seed
+    if seed is None:
+        origin = trial.number if info.retry_of is None else info.retry_of
+        seed = trial_seed(spec.study.seed, origin)
     return StoredTrial(study.study_name, trial, TrialParams.from_mapping(training), seed)
 
 

@@ -17,12 +17,13 @@ import optuna
 import sqlalchemy as sa
 
 from sweeper.errors import InputError, StorageFailure, StudyNotFound
+from sweeper.store.heartbeat import HeartbeatTiming
+from sweeper.store.optuna_internals import rdb_storage
 from sweeper.store.study_file import check_study_file
 
 T = TypeVar("T")
 
 BUSY_TIMEOUT_SECONDS = 60
-HEARTBEAT_SECONDS = 10
 
 _PASSWORD = re.compile(r"(?P<head>://[^:/@]+:)(?P<password>[^@]*)(?P<tail>@)")
 
@@ -174,14 +175,15 @@ def _open_first_or_join(
 def _open(
     url: str, heartbeat: bool, stale_callback: Any, read_only: bool
 ) -> optuna.storages.RDBStorage:
+    timing = HeartbeatTiming()  # until the study's own heartbeat is read (set_heartbeat)
     try:
         with warnings.catch_warnings():  # heartbeats are "experimental" in optuna 5
             warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
             storage = optuna.storages.RDBStorage(
                 url,
                 engine_kwargs=engine_options(url),
-                heartbeat_interval=HEARTBEAT_SECONDS if heartbeat else None,
-                grace_period=3 * HEARTBEAT_SECONDS if heartbeat else None,
+                heartbeat_interval=timing.interval if heartbeat else None,
+                grace_period=timing.stale_after if heartbeat else None,
                 heartbeat_stale_trial_callback=stale_callback,
             )
     except (sa.exc.SQLAlchemyError, ImportError, ValueError) as error:
@@ -216,18 +218,6 @@ def retry_locked(action: Callable[[], T], *, attempts: int = 8) -> T:
     raise AssertionError("unreachable")
 
 
-def backend_of(study: optuna.Study) -> Any:
-    """The RDB storage under a study (optuna wraps it in a cache layer)."""
-    storage: Any = study._storage
-    return getattr(storage, "_backend", storage)
-
-
 def engine_of(study: optuna.Study) -> sa.Engine:
     """The SQLAlchemy engine under a study, shared by our own tables."""
-    return backend_of(study).engine
-
-
-def set_heartbeat(storage: optuna.storages.RDBStorage, seconds: int) -> None:
-    """Heartbeat every ``seconds``; a trial silent for three heartbeats counts as dead."""
-    storage.heartbeat_interval = seconds
-    storage.grace_period = 3 * seconds
+    return rdb_storage(study).engine

@@ -8,15 +8,18 @@ import socket
 import time
 
 import optuna
-from optuna.storages import RetryHeartbeatStaleTrialCallback, fail_stale_trials
+from optuna.storages import fail_stale_trials
 from optuna.trial import TrialState
 
 from sweeper.errors import TooManyFailures
 from sweeper.spec.sections import Spec
 from sweeper.store import tables
-from sweeper.store.connect import backend_of, engine_of, redact, set_heartbeat
+from sweeper.store.attrs import StudyInfo, TrialInfo
+from sweeper.store.connect import engine_of, redact
+from sweeper.store.heartbeat import HeartbeatTiming
+from sweeper.store.optuna_internals import rdb_storage, retry_stale_trials, set_heartbeat
 from sweeper.sweep import lease
-from sweeper.sweep.lost_claims import fail_unstarted_trials, grace_seconds
+from sweeper.sweep.lost_claims import fail_unstarted_trials
 from sweeper.sweep.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.sweep.study import budget_of, request_stop, top_up
 
@@ -34,8 +37,8 @@ def _queue_short(snap: Snapshot, workers: int) -> bool:
 
 def stored_budget(study: optuna.Study, spec: Spec) -> Spec:
     """The spec with the budget of the latest launch (another host may have raised it)."""
-    attrs = study._storage.get_study_user_attrs(study._study_id)
-    return spec.with_overrides(trials=attrs.get("budget"), workers=attrs.get("workers"))
+    info = StudyInfo.of(study)
+    return spec.with_overrides(trials=info.budget, workers=info.workers)
 
 
 class Coordinator:
@@ -52,22 +55,19 @@ class Coordinator:
         self.launched = dt.datetime.now()
         self.queued = 0
         self.holder = f"{socket.gethostname()}:{os.getpid()}:coordinator"
-        backend = backend_of(study)
-        set_heartbeat(backend, spec.study.heartbeat)
-        backend.heartbeat_stale_trial_callback = RetryHeartbeatStaleTrialCallback(
-            max_retry=spec.study.max_retries
-        )
+        backend = rdb_storage(study)
+        set_heartbeat(backend, HeartbeatTiming(spec.study.heartbeat))
+        retry_stale_trials(backend, spec.study.max_retries)
         tables.ensure_tables(engine_of(study))
         self._due = 0.0  # when `step_when_due` steps next (time.monotonic)
 
     def step(self) -> Snapshot:
         self.spec = stored_budget(self.study, self.spec)
-        # the lease outlives a few heartbeats, so a dead holder is replaced about as fast as
-        # its dead trials are noticed
-        seconds = max(5.0, 3.0 * self.spec.study.heartbeat)
-        if lease.acquire(engine_of(self.study), self.study.study_name, self.holder, seconds):
+        timing = HeartbeatTiming(self.spec.study.heartbeat)
+        engine = engine_of(self.study)
+        if lease.acquire(engine, self.study.study_name, self.holder, timing.lease_seconds):
             fail_stale_trials(self.study)
-            fail_unstarted_trials(self.study, grace_seconds(self.spec.study.heartbeat))
+            fail_unstarted_trials(self.study, timing.unstarted_after)
             self._check_failures()
             self.queued += top_up(self.study, self.spec)
         snap = snapshot(self.study, budget_of(self.spec), self.spec.study.workers)
@@ -96,15 +96,16 @@ class Coordinator:
             if t.datetime_complete is not None
             and t.datetime_complete >= self.launched
             and t.state in (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
-            and not (t.state == TrialState.FAIL and "failure" not in t.user_attrs)
+            and not (t.state == TrialState.FAIL and TrialInfo.of(t).failure is None)
         ]
         ended.sort(key=lambda t: (t.datetime_complete, t.number))
         recent = ended[-limit:]
         if len(recent) == limit and all(t.state == TrialState.FAIL for t in recent):
-            last = recent[-1].user_attrs["failure"]
+            last = TrialInfo.of(recent[-1]).failure
+            assert last is not None  # only trials that recorded a failure are counted
             reason = (
                 f"{limit} trials in a row failed; the last (trial {recent[-1].number}) raised "
-                f"{last['type']}: {last['message']}"
+                f"{last.kind}: {last.message}"
             )
             request_stop(self.study, reason)
             raise TooManyFailures(redact(reason))

@@ -13,19 +13,19 @@ from sweeper.errors import Interrupted, RunFailure, TooManyFailures
 from sweeper.seeds import derive_seed
 from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
+from sweeper.store.attrs import StoredBaseline, StudyInfo, set_stop_request
 from sweeper.store.connect import open_storage, redact, storage_url
 from sweeper.sweep.cluster import run_on_cluster
 from sweeper.sweep.coordinator import Coordinator
 from sweeper.sweep.pool import LocalPool, local_pool
 from sweeper.sweep.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.sweep.study import (
-    STOP_ATTR,
     budget_of,
     create_or_continue,
+    launch_attrs,
     load_existing,
     quiet_optuna,
     request_stop,
-    spec_attrs,
     stop_requested,
 )
 from sweeper.sweep.workers import (
@@ -54,29 +54,23 @@ class SweepResult:
     notes: list[str] = field(default_factory=list)
 
 
-def _task_attrs(spec: Spec) -> tuple[dict | None, str, str]:
+def _task_attrs(spec: Spec) -> tuple[StoredBaseline | None, str, str, str]:
+    """The task's baseline, name, description and metric name, as the study stores them."""
     if spec.is_objective_plugin:
-        return None, "objective", f"objective plugin {spec.task.function}"
+        return None, "objective", f"objective plugin {spec.task.function}", "value"
     task = build_spec_task(spec)
     baseline = task.baseline()
-    data = {
-        "value": baseline.value,
-        "measure": baseline.measure,
-        "description": baseline.description,
-    }
-    return data, task.name, task.describe()
+    stored = StoredBaseline(baseline.value, baseline.measure, baseline.description)
+    return stored, task.name, task.describe(), task.metric_name
 
 
 def open_for_launch(spec: Spec) -> optuna.Study:
     """Create the study, or continue it when the spec matches the stored one."""
     quiet_optuna()
-    baseline, task, description = _task_attrs(spec)
+    baseline, task, description, metric_name = _task_attrs(spec)
     storage = open_storage(spec.storage_location)
-    attrs = spec_attrs(spec, baseline, task, description)
-    attrs["metric_name"] = (
-        "value" if spec.is_objective_plugin else build_spec_task(spec).metric_name
-    )
-    return create_or_continue(storage, spec, attrs)
+    launch = launch_attrs(spec, baseline, task, description, metric_name)
+    return create_or_continue(storage, spec, launch)
 
 
 @dataclass(frozen=True)
@@ -139,7 +133,7 @@ def join_sweep(location: str, display: ProgressDisplay | None = None) -> SweepRe
     """
     quiet_optuna()
     study, spec = load_existing(location)
-    study.set_user_attr(STOP_ATTR, None)  # joining means: work on it again, as resume does
+    set_stop_request(study, None)  # joining means: work on it again, as resume does
     threads = spec.training.threads or default_threads(1)
     return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
 
@@ -172,11 +166,11 @@ def best_line(study: optuna.Study) -> str:
         best = study.best_trial
     except ValueError:
         return ""
-    objective = study.user_attrs.get("objective", "value")
-    baseline = study.user_attrs.get("baseline") or {}
+    info = StudyInfo.of(study)
+    objective, baseline = info.objective, info.baseline
     against = ""
-    if baseline.get("measure") == objective:
-        against = f" (baseline {baseline['value']:.5g})"
+    if baseline is not None and baseline.measure == objective:
+        against = f" (baseline {baseline.value:.5g})"
     params = ", ".join(f"{name}={_short(value)}" for name, value in best.params.items())
     return f"best trial {best.number}: {objective} {best.value:.5g}{against}; {params}"
 

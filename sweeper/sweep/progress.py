@@ -12,6 +12,7 @@ from typing import IO, Any
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 
+from sweeper.store.attrs import TrialInfo
 from sweeper.sweep.study import Tally, tally
 
 
@@ -77,6 +78,12 @@ def _eta(trials: list[FrozenTrial], counts: Tally, budget: int, workers: int) ->
     return waves * mean
 
 
+def _running(trial: FrozenTrial, now: dt.datetime) -> RunningTrial:
+    info = TrialInfo.of(trial)
+    epoch = max(trial.intermediate_values, default=info.epochs or 0)
+    return RunningTrial(trial.number, epoch, _age(trial, now), info.worker)
+
+
 def snapshot(study: optuna.Study, budget: int, workers: int) -> Snapshot:
     trials = study.get_trials(deepcopy=False)
     counts = tally(trials)
@@ -86,20 +93,9 @@ def snapshot(study: optuna.Study, budget: int, workers: int) -> Snapshot:
         pick = min if study.direction == optuna.study.StudyDirection.MINIMIZE else max
         best = pick(complete, key=lambda t: float(t.value or 0.0))
     now = dt.datetime.now()
-    running = tuple(
-        RunningTrial(
-            t.number,
-            max(t.intermediate_values, default=int(t.user_attrs.get("epochs", 0))),
-            _age(t, now),
-            str(t.user_attrs.get("worker", "")),
-        )
-        for t in trials
-        if t.state == TrialState.RUNNING
-    )
+    running = tuple(_running(t, now) for t in trials if t.state == TrialState.RUNNING)
     retries = tuple(
-        (t.number, int(t.system_attrs["failed_trial"]))
-        for t in trials
-        if "failed_trial" in t.system_attrs
+        (t.number, origin) for t in trials if (origin := TrialInfo.of(t).failed_trial) is not None
     )
     return Snapshot(
         study_name=study.study_name,

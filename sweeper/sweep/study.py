@@ -19,10 +19,18 @@ from sweeper.spec.loading import parse_spec
 from sweeper.spec.sections import MUTABLE_KEYS, Spec, budget_of
 from sweeper.spec.space import grid_points
 from sweeper.store import tables
+from sweeper.store.attrs import (
+    StoredBaseline,
+    StudyInfo,
+    StudyLaunch,
+    TrialInfo,
+    continuation_system_attrs,
+    set_stop_request,
+    write_launch,
+)
 from sweeper.store.connect import open_storage, redact
 
 FINISHED = (TrialState.COMPLETE, TrialState.PRUNED)
-STOP_ATTR = "stop_request"
 # Random trials before TPE models the results. Early stopping makes them cheap but also
 # makes sweeps short; optuna's 10 left TPE idle for most of a typical budget (measured in
 # benchmarks/search_efficiency.py).
@@ -85,19 +93,23 @@ def _rule_pruner(spec: Spec) -> optuna.pruners.BasePruner | None:
     return None
 
 
-def spec_attrs(spec: Spec, baseline: dict[str, Any] | None, task: str, description: str) -> dict:
-    return {
-        "spec_text": spec.text,
-        "spec_source": str(Path(spec.source).resolve()) if spec.source else "",
-        "spec_hash": spec.digest(),
-        "spec_data": json.dumps(spec.canonical(), sort_keys=True, default=str),
-        "task": task,
-        "task_description": description,
-        "baseline": baseline,
-        "objective": "value" if spec.is_objective_plugin else spec.study.objective,
-        "budget": spec.study.trials,
-        "workers": spec.study.workers,
-    }
+def launch_attrs(
+    spec: Spec, baseline: StoredBaseline | None, task: str, description: str, metric_name: str
+) -> StudyLaunch:
+    """What a launch of ``spec`` stores in its study."""
+    return StudyLaunch(
+        spec_text=spec.text,
+        spec_source=str(Path(spec.source).resolve()) if spec.source else "",
+        spec_hash=spec.digest(),
+        spec_data=spec.canonical(),
+        task=task,
+        task_description=description,
+        baseline=baseline,
+        objective="value" if spec.is_objective_plugin else spec.study.objective,
+        metric_name=metric_name,
+        budget=spec.study.trials,
+        workers=spec.study.workers,
+    )
 
 
 def changed_keys(old: dict[str, Any], new: dict[str, Any], prefix: str = "") -> list[str]:
@@ -113,7 +125,7 @@ def changed_keys(old: dict[str, Any], new: dict[str, Any], prefix: str = "") -> 
 
 
 def create_or_continue(
-    storage: optuna.storages.RDBStorage, spec: Spec, attrs: dict
+    storage: optuna.storages.RDBStorage, spec: Spec, launch: StudyLaunch
 ) -> optuna.Study:
     """The study named in the spec; a different spec under the same name is refused."""
     names = set(optuna.get_all_study_names(storage))
@@ -126,17 +138,16 @@ def create_or_continue(
     if spec.study.name in names or "spec_hash" in study.user_attrs:  # or made just now
         _refuse_changed_spec(study, spec)
     tables.ensure_tables(storage.engine)
-    for key, value in attrs.items():
-        study.set_user_attr(key, value)
-    study.set_user_attr(STOP_ATTR, None)
+    write_launch(study, launch)
+    set_stop_request(study, None)
     return study
 
 
 def _refuse_changed_spec(study: optuna.Study, spec: Spec) -> None:
-    stored = study.user_attrs.get("spec_hash")
-    if stored is None or stored == spec.digest():
+    info = StudyInfo.of(study)
+    if info.spec_hash is None or info.spec_hash == spec.digest():
         return
-    old = json.loads(study.user_attrs.get("spec_data", "{}"))
+    old = info.spec_data
     new = json.loads(json.dumps(spec.canonical(), sort_keys=True, default=str))
     changed = [k for k in changed_keys(old, new) if k not in MUTABLE_KEYS]
     raise SpecChanged(
@@ -162,15 +173,12 @@ def load_existing(
     if study_name not in names:
         raise StudyNotFound(f"{redact(location)}: no study named '{study_name}'")
     study = optuna.load_study(study_name=study_name, storage=storage)
-    text = study.user_attrs.get("spec_text")
-    if not isinstance(text, str):
+    info = StudyInfo.of(study)
+    if info.spec_text is None:
         raise StudyNotFound(f"{redact(location)}: '{study_name}' was not made by sweeper")
-    spec = parse_spec(text, study.user_attrs.get("spec_source", "") or "<stored spec>")
+    spec = parse_spec(info.spec_text, info.spec_source or "<stored spec>")
     # the budget and worker count of the latest launch, which may differ from the file's
-    stored = study.user_attrs
-    spec = spec.with_overrides(
-        trials=stored.get("budget"), workers=stored.get("workers"), storage=location
-    )
+    spec = spec.with_overrides(trials=info.budget, workers=info.workers, storage=location)
     return study, spec
 
 
@@ -193,7 +201,7 @@ class Tally:
 def tally(trials: list[FrozenTrial]) -> Tally:
     counts = Counter(trial.state for trial in trials)
     interrupted = sum(
-        1 for t in trials if t.state == TrialState.FAIL and t.user_attrs.get("interrupted")
+        1 for t in trials if t.state == TrialState.FAIL and TrialInfo.of(t).interrupted
     )
     return Tally(
         complete=counts[TrialState.COMPLETE],
@@ -220,8 +228,7 @@ def over_budget(trials: list[FrozenTrial], trial_number: int, budget: int) -> bo
 
 
 def compute_seconds(trial: FrozenTrial) -> float:
-    value = trial.user_attrs.get("compute_seconds")
-    return float(value) if isinstance(value, int | float) else 0.0
+    return TrialInfo.of(trial).compute_seconds or 0.0
 
 
 @dataclass(frozen=True)
@@ -308,7 +315,7 @@ def _queue_grid_points(
         return json.dumps(params, sort_keys=True, default=str)
 
     taken = {
-        key(trial.system_attrs.get("fixed_params") or trial.params)
+        key(TrialInfo.of(trial).fixed_params or trial.params)
         for trial in trials
         if trial.state != TrialState.FAIL
     }
@@ -323,12 +330,11 @@ def _queue_grid_points(
 
 
 def request_stop(study: optuna.Study, reason: str) -> None:
-    study.set_user_attr(STOP_ATTR, reason)
+    set_stop_request(study, reason)
 
 
 def stop_requested(study: optuna.Study) -> str | None:
-    reason = study._storage.get_study_user_attrs(study._study_id).get(STOP_ATTR)
-    return reason if isinstance(reason, str) else None
+    return StudyInfo.of(study).stop_request
 
 
 def requeue_interrupted(study: optuna.Study) -> int:
@@ -339,24 +345,18 @@ def requeue_interrupted(study: optuna.Study) -> int:
     the retry history that ``study.max_retries`` is checked against.
     """
     trials = study.get_trials(deepcopy=False)
-    continued = {number for t in trials for number in t.system_attrs.get("retry_history", [])}
+    continued = {number for t in trials for number in TrialInfo.of(t).retry_history}
     queued = 0
     for trial in trials:
-        if trial.state != TrialState.FAIL or not trial.user_attrs.get("interrupted"):
+        info = TrialInfo.of(trial)
+        if trial.state != TrialState.FAIL or not info.interrupted or trial.number in continued:
             continue
-        if trial.number in continued:
-            continue
-        history = [*trial.system_attrs.get("retry_history", []), trial.number]
         study.add_trial(
             optuna.create_trial(
                 state=TrialState.WAITING,
                 params=trial.params,
                 distributions=trial.distributions,
-                system_attrs={
-                    "failed_trial": trial.system_attrs.get("failed_trial", trial.number),
-                    "retry_history": history,
-                    "continues_interrupted": trial.number,
-                },
+                system_attrs=continuation_system_attrs(info),
             )
         )
         queued += 1

@@ -12,19 +12,33 @@ from dataclasses import dataclass
 
 import optuna
 import torch
-from optuna.storages._heartbeat import get_heartbeat_thread
 from optuna.trial import TrialState
 
 from sweeper.spec.checks import build_spec_task, load_objective_of
 from sweeper.spec.sections import Spec
 from sweeper.store import checkpoints
-from sweeper.store.connect import backend_of, engine_of, redact, retry_locked, set_heartbeat
+from sweeper.store.attrs import (
+    StoredFailure,
+    TrialInfo,
+    record_end,
+    record_failure,
+    record_interrupted,
+    record_wall_seconds,
+)
+from sweeper.store.connect import engine_of, redact, retry_locked
+from sweeper.store.heartbeat import HeartbeatTiming
+from sweeper.store.optuna_internals import (
+    claim_waiting_trial,
+    heartbeat_thread,
+    rdb_storage,
+    return_to_queue,
+    set_heartbeat,
+    trial_id,
+)
 from sweeper.sweep.pool import LocalPool, collector_paused
 from sweeper.sweep.runner import (
     TrialContext,
     failure_attrs,
-    origin_number,
-    origin_of,
     run_trial,
     worker_name,
 )
@@ -146,7 +160,7 @@ def _work(
 ) -> WorkerSummary:
     quiet_optuna()
     study, spec = load_existing(location, study_name)
-    set_heartbeat(backend_of(study), spec.study.heartbeat)
+    set_heartbeat(rdb_storage(study), HeartbeatTiming(spec.study.heartbeat))
     study.sampler = make_sampler(spec, worker_index, len(study.get_trials(deepcopy=False)))
     study.pruner = make_pruner(spec)
     context = _context(study, spec, worker_index, stop_event)
@@ -156,8 +170,8 @@ def _work(
     done = 0
     idle_since = time.monotonic()
     while not stop_event.is_set() and stop_requested(study) is None:
-        trial_id = retry_locked(study._pop_waiting_trial_id)
-        if trial_id is None:
+        claimed = retry_locked(lambda: claim_waiting_trial(study))
+        if claimed is None:
             trials = study.get_trials(deepcopy=False)
             waited = time.monotonic() - idle_since
             if budget_met(trials, spec) or (
@@ -166,29 +180,29 @@ def _work(
                 break
             time.sleep(IDLE_POLL_SECONDS)
             continue
-        if _give_back_if_surplus(study, spec, trial_id):
+        if _give_back_if_surplus(study, spec, claimed):
             if budget_met(study.get_trials(deepcopy=False), spec):
                 break
             time.sleep(IDLE_POLL_SECONDS)
             continue
-        run_claimed(study, trial_id, context)
+        run_claimed(study, claimed, context)
         done += 1
         idle_since = time.monotonic()
     done_event.set()  # ends the watcher thread
     return WorkerSummary(context.worker, done)
 
 
-def _give_back_if_surplus(study: optuna.Study, spec: Spec, trial_id: int) -> bool:
+def _give_back_if_surplus(study: optuna.Study, spec: Spec, claimed: int) -> bool:
     """Return a claimed trial to the queue when the budget is already spoken for.
 
     Happens when a launch lowers the budget below what earlier launches queued, and when
     the next trial would overrun the compute budget.
     """
     trials = study.get_trials(deepcopy=False)
-    number = next(t.number for t in trials if t._trial_id == trial_id)
+    number = next(t.number for t in trials if trial_id(t) == claimed)
     if not claim_exceeds_budget(trials, number, spec):
         return False
-    retry_locked(lambda: study._storage.set_trial_state_values(trial_id, TrialState.WAITING))
+    retry_locked(lambda: return_to_queue(study, claimed))
     return True
 
 
@@ -209,35 +223,30 @@ def _context(
     return context
 
 
-def run_claimed(study: optuna.Study, trial_id: int, context: TrialContext) -> TrialState:
+def run_claimed(study: optuna.Study, claimed: int, context: TrialContext) -> TrialState:
     """Run one claimed trial under a heartbeat; every outcome ends up in the study."""
-    trial = optuna.Trial(study, trial_id)
+    trial = optuna.Trial(study, claimed)
     started = time.perf_counter()
     value: float | None = None
     interrupted = False
-    with get_heartbeat_thread(trial_id, study._storage):
+    with heartbeat_thread(study, claimed):
         try:
             value = run_trial(trial, context)
             state = TrialState.COMPLETE
         except optuna.TrialPruned as stopped:
             state = TrialState.PRUNED
-            if "end_reason" not in trial.user_attrs:
-                trial.set_user_attr("end_reason", str(stopped) or "stopped early")
+            if TrialInfo.live(trial).end_reason is None:
+                record_end(trial, str(stopped) or "stopped early")
         except TrainingInterrupted as stop:
             # kept as failed with its checkpoint; the next launch queues it again
             state, interrupted = TrialState.FAIL, True
-            trial.set_user_attr("interrupted", True)
-            trial.set_user_attr(
-                "end_reason", f"interrupted in epoch {stop.epoch}; continues on resume"
-            )
+            record_interrupted(trial, stop.epoch)
         except Exception as error:  # user code failed: record it, keep the study going
             state = TrialState.FAIL
-            details = {key: redact(text) for key, text in failure_attrs(error).items()}
-            trial.set_user_attr("failure", details)
-            trial.set_user_attr("end_reason", f"failed: {details['type']}: {details['message']}")
-    _finish_attrs(trial, started)
+            record_failure(trial, _redacted_failure(error))
+    record_wall_seconds(trial, time.perf_counter() - started)
     if state == TrialState.COMPLETE and (value is None or not math.isfinite(value)):
-        trial.set_user_attr("end_reason", f"objective returned {value!r}")
+        record_end(trial, f"objective returned {value!r}")
         state, value = TrialState.FAIL, None
     retry_locked(lambda: study.tell(trial, value, state=state))
     if not interrupted:
@@ -245,18 +254,16 @@ def run_claimed(study: optuna.Study, trial_id: int, context: TrialContext) -> Tr
     return state
 
 
-def _finish_attrs(trial: optuna.Trial, started: float) -> None:
-    wall = time.perf_counter() - started
-    trial.set_user_attr("wall_seconds", wall)
-    if "compute_seconds" not in trial.user_attrs:
-        trial.set_user_attr("compute_seconds", wall)
+def _redacted_failure(error: BaseException) -> StoredFailure:
+    details = {key: redact(text) for key, text in failure_attrs(error).items()}
+    return StoredFailure(details["type"], details["message"], details["traceback"])
 
 
 def _drop_checkpoint(study: optuna.Study, trial: optuna.Trial, context: TrialContext) -> None:
     """A finished trial needs no checkpoint, except the best one when the spec keeps it."""
     if context.spec.is_objective_plugin:
         return
-    origin = origin_number(trial)
+    origin = TrialInfo.live(trial).origin
     if not context.spec.study.keep_best_checkpoint:
         checkpoints.drop(context.engine, context.study_name, [origin])
         return
@@ -276,9 +283,10 @@ def drop_spent_checkpoints(study: optuna.Study, spec: Spec, also: int | None = N
         best = study.best_trial
     except ValueError:  # no complete trial yet
         best = None
-    keep = origin_of(best) if best is not None and spec.study.keep_best_checkpoint else None
+    keep_best = best is not None and spec.study.keep_best_checkpoint
+    keep = TrialInfo.of(best).origin if best is not None and keep_best else None
     finished = {
-        origin_of(t)
+        TrialInfo.of(t).origin
         for t in study.get_trials(deepcopy=False, states=(TrialState.COMPLETE, TrialState.PRUNED))
     } | ({also} if also is not None else set())
     checkpoints.drop(engine_of(study), study.study_name, sorted(finished - {keep}))
