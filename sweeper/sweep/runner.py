@@ -17,7 +17,8 @@ import torch
 from sweeper.seeds import trial_seed
 from sweeper.spec.sections import Spec
 from sweeper.spec.space import draw
-from sweeper.store import checkpoints, epoch_rows
+from sweeper.store import attrs, checkpoints, epoch_rows
+from sweeper.store.attrs import TrialInfo
 from sweeper.tasks.base import Task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
@@ -46,17 +47,6 @@ class TrialContext:
     should_stop: Callable[[], bool] = field(default=lambda: False)
 
 
-def origin_of(trial: optuna.trial.FrozenTrial) -> int:
-    """The trial this one retries or continues (its seed and checkpoint), or its own number."""
-    original = trial.system_attrs.get("failed_trial")
-    return int(original) if original is not None else trial.number
-
-
-def origin_number(trial: optuna.Trial) -> int:
-    """``origin_of`` for a live trial."""
-    return origin_of(trial.storage.get_trial(trial._trial_id))
-
-
 def objective_value(spec: Spec, record: EpochRecord) -> float:
     return record.valid_metric if spec.study.objective == "valid_metric" else record.valid_loss
 
@@ -68,12 +58,9 @@ def worst_value(spec: Spec) -> float:
 def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:
     """Run one trial; raise optuna.TrialPruned when stopped early or diverged."""
     params = draw(trial, ctx.spec.search)
-    origin = origin_number(trial)
-    if origin != trial.number:
-        trial.set_user_attr("retry_of", origin)
+    origin = TrialInfo.live(trial).origin  # the trial it retries or continues, or itself
     seed = trial_seed(ctx.spec.study.seed, origin)
-    trial.set_user_attr("seed", seed)
-    trial.set_user_attr("worker", ctx.worker)
+    attrs.record_start(trial, seed, ctx.worker, origin)
     if ctx.spec.is_objective_plugin:
         return _run_objective(trial, ctx, params)
     return _run_training(trial, ctx, params, seed, origin)
@@ -90,12 +77,11 @@ def _continue_from_checkpoint(
     for record in run.records:
         epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
         trial.report(objective_value(ctx.spec, record), record.epoch)
-    trial.set_user_attr("resumed_from_epoch", run.epoch)
+    attrs.record_resumed(trial, run.epoch)
     # A retry inherits its original's attributes, which lag when the worker died between
     # saving a checkpoint and recording its epoch; with no epoch left to run, nothing else
     # would correct them.
-    trial.set_user_attr("epochs", run.epoch)
-    trial.set_user_attr("compute_seconds", sum(record.seconds for record in run.records))
+    attrs.record_progress(trial, run.epoch, sum(record.seconds for record in run.records))
 
 
 class EpochReporter:
@@ -116,8 +102,7 @@ class EpochReporter:
         epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
         checkpoints.save(ctx.engine, ctx.study_name, self._origin, epoch, self._run.state_dict())
         self.compute += record.seconds
-        trial.set_user_attr("epochs", epoch)
-        trial.set_user_attr("compute_seconds", self.compute)
+        attrs.record_progress(trial, epoch, self.compute)
 
     def stop_reason(self, record: EpochRecord) -> str | None:
         self.value = objective_value(self._ctx.spec, record)
@@ -132,8 +117,7 @@ def _run_training(
 ) -> float:
     assert ctx.task is not None, "a training trial needs its task"
     training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
-    trial.set_user_attr("training", training.as_dict())
-    trial.set_user_attr("threads", torch.get_num_threads())  # replay needs the same count
+    attrs.record_training(trial, training.as_dict(), torch.get_num_threads())  # for replay
     build = section_model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
     run = TrialRun(ctx.task, training, seed, build)
     _continue_from_checkpoint(trial, ctx, run, origin)
@@ -145,17 +129,17 @@ def _run_training(
         stop_after=reporter.stop_reason,
         should_stop=ctx.should_stop,
     )
+    reason = end.reason or end.how
     if end.how == "diverged":
         # the sampler must learn that this region is bad
-        trial.set_user_attr("diverged", True)
-        trial.set_user_attr("end_reason", end.reason)
+        attrs.record_diverged(trial, reason)
         trial.report(worst_value(ctx.spec), end.epoch)
         trial.should_prune()  # the stopping rule records it too (ASHA ranks it in its rung)
-        raise optuna.TrialPruned(end.reason)
+        raise optuna.TrialPruned(reason)
     if end.how == "stopped":
-        trial.set_user_attr("end_reason", end.reason)
-        raise optuna.TrialPruned(end.reason)
-    trial.set_user_attr("end_reason", "completed")
+        attrs.record_end(trial, reason)
+        raise optuna.TrialPruned(reason)
+    attrs.record_end(trial, "completed")
     return reporter.value
 
 
@@ -178,15 +162,15 @@ def _run_objective(trial: optuna.Trial, ctx: TrialContext, params: dict) -> floa
         epoch_rows.write_epoch(
             ctx.engine, ctx.study_name, trial.number, _plugin_record(epoch, value)
         )
-        trial.set_user_attr("epochs", epoch)
+        attrs.record_progress(trial, epoch)
         trial.report(float(value), epoch)
         if trial.should_prune():
             reason = f"stopped early after step {epoch}"
-            trial.set_user_attr("end_reason", reason)
+            attrs.record_end(trial, reason)
             raise optuna.TrialPruned(reason)
 
     value = float(ctx.objective(dict(params), report))
-    trial.set_user_attr("end_reason", "completed")
+    attrs.record_end(trial, "completed")
     return value
 
 
