@@ -5,7 +5,9 @@ from __future__ import annotations
 import csv
 import json
 import math
+import os
 import sqlite3
+import stat
 from pathlib import Path
 
 import optuna
@@ -112,6 +114,19 @@ def test_csv_writes_two_files_with_exact_columns(location: str, tmp_path: Path) 
     )
     nan_row = dict(zip(EPOCHS, epochs[3], strict=True))
     assert nan_row["valid_loss"] == "" and nan_row["steps"] == "10"
+
+
+@pytest.mark.parametrize("fmt", ["csv", "json", "sqlite"])
+def test_exported_files_get_the_mode_the_umask_gives_new_files(
+    location: str, tmp_path: Path, fmt: str
+) -> None:
+    # POSIX open(2): a new file's mode is 0666 less the umask (here 0644)
+    before = os.umask(0o022)
+    try:
+        written = export_study(location, tmp_path / f"run.{fmt}", fmt)  # type: ignore[arg-type]
+    finally:
+        os.umask(before)
+    assert [stat.S_IMODE(path.stat().st_mode) for path in written] == [0o644] * len(written)
 
 
 def test_json_holds_study_trials_and_epochs(location: str, tmp_path: Path) -> None:
