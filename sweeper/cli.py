@@ -197,13 +197,23 @@ def report(study_location: str, output: str | None) -> None:
 @main.command()
 @click.argument("study_location", metavar="STUDY")
 @click.option("--format", "fmt", type=click.Choice(["csv", "json", "sqlite"]), required=True)
-@click.option("-o", "--output", type=click.Path(), required=True, help="Output path.")
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(),
+    required=True,
+    help="Output path; csv writes two files named after it (x.csv: x_trials.csv, x_epochs.csv).",
+)
 def export(study_location: str, fmt: str, output: str) -> None:
-    """Write flat tables of trials, parameters and epochs."""
-    from sweeper.report.export import export_study
+    """Write flat tables of trials, parameters and epochs.
 
-    for path in export_study(study_location, Path(output), fmt):  # type: ignore[arg-type]
-        click.echo(str(path))
+    json and sqlite write the one file PATH; csv writes one file per table beside it:
+    -o x.csv gives x_trials.csv and x_epochs.csv.
+    """
+    from sweeper.report.export import export_study, written_line
+
+    written = export_study(study_location, Path(output), fmt)  # type: ignore[arg-type]
+    click.echo(written_line(written, Path(output)))
 
 
 @main.command()

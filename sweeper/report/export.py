@@ -81,6 +81,14 @@ def export_study(
     return writers[fmt](read_study(location, study_name), output)
 
 
+def written_line(written: Sequence[Path], requested: Path) -> str:
+    """What an export wrote, saying so when csv's file names differ from the one asked for."""
+    names = " and ".join(str(path) for path in written)
+    if list(written) == [requested]:
+        return f"exported: {names}"
+    return f"exported: {names} (csv writes one file per table, named after {requested.name})"
+
+
 def param_column(name: str) -> str:
     return f"param_{name}"
 
