@@ -156,8 +156,22 @@ def _finish(result: object, report_path: str | None) -> None:
         from sweeper.report.render import build_report
     except ImportError:  # the summary is optional until its package is installed
         return
-    written = build_report(result.location, output, result.study_name)
+    try:
+        written = build_report(result.location, output, result.study_name)
+    except KeyboardInterrupt:
+        raise _summary_interrupted(result.location, report_path) from None
     click.echo(f"summary: {written}")
+
+
+def _summary_interrupted(location: str, report_path: str | None) -> Interrupted:
+    """The sweep is over and stored; only the page is missing, and one command writes it."""
+    from sweeper.store.connect import redact
+
+    where = f" -o {report_path}" if report_path else ""
+    return Interrupted(
+        "interrupted while writing the summary; the study is intact. "
+        f"Write the summary with: sweeper report {redact(location)}{where}"
+    )
 
 
 def default_report_path(location: str) -> Path:
