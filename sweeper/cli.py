@@ -99,8 +99,7 @@ def _queue(spec: Spec) -> None:
     from sweeper.store.connect import redact
     from sweeper.sweep.launcher import queue_only
 
-    result = queue_only(spec)
-    click.echo(result.snapshot.line())
+    queue_only(spec)  # its display has logged the study's line on stderr
     click.echo(f"start workers with: sweeper worker {redact(spec.storage_location)}")
 
 
@@ -127,8 +126,7 @@ def worker(study_location: str) -> None:
     """Join a study from this host and work until its budget is met."""
     from sweeper.sweep.launcher import join_sweep
 
-    result = join_sweep(study_location)
-    click.echo(result.snapshot.line())
+    _final_line(join_sweep(study_location).snapshot.line())
 
 
 def entry() -> None:
@@ -137,6 +135,14 @@ def entry() -> None:
     # collections skip torch's large object graph: about a second at every exit.
     atexit.register(gc.freeze)  # registered first, so it runs after every other exit handler
     main(prog_name="sweeper")
+
+
+def _final_line(line: str) -> None:
+    """The study's final line on stdout, unless the progress log already ended with it."""
+    from sweeper.sweep.progress import writes_plain_lines
+
+    if not writes_plain_lines():  # a live bar drew it; say it in words once
+        click.echo(line)
 
 
 def _finish(result: object, report_path: str | None) -> None:
@@ -148,7 +154,7 @@ def _finish(result: object, report_path: str | None) -> None:
             f"budget already met ({result.snapshot.counts.finished} finished trials); "
             "raise --trials to run more"
         )
-    click.echo(result.snapshot.line())
+    _final_line(result.snapshot.line())
     if result.best_line:
         click.echo(result.best_line)
     output = Path(report_path) if report_path else default_report_path(result.location)

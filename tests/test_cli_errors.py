@@ -7,6 +7,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
+import sweeper.report.render
 from sweeper.cli import main
 from tests.conftest import invoke, write_tiny_spec
 
@@ -98,8 +99,6 @@ def test_every_command_has_help() -> None:
 def test_ctrl_c_while_the_summary_is_written_says_how_to_write_it(
     in_tmp: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    import sweeper.report.render
-
     def interrupted(*args: object) -> None:
         raise KeyboardInterrupt
 
