@@ -180,7 +180,8 @@ def float_ranges(draw_from: st.DrawFn, low: float, high: float, log: bool = Fals
     middle = math.sqrt(low * high) if log else (low + high) / 2
     first = draw_from(st.floats(low, middle))
     if log:
-        return {"between": [first, draw_from(st.floats(middle, high))], "scale": "log"}
+        last = draw_from(st.floats(middle, high, exclude_min=True))
+        return {"between": [first, last], "scale": "log"}
     if draw_from(st.booleans()):
         return {"between": [first, draw_from(st.floats(middle, high, exclude_min=True))]}
     # a stepped range on multiples of 1/8, which binary floats hold exactly (optuna warns
