@@ -99,8 +99,7 @@ def _queue(spec: Spec) -> None:
     from sweeper.store.connect import redact
     from sweeper.sweep.launcher import queue_only
 
-    result = queue_only(spec)
-    click.echo(result.snapshot.line())
+    queue_only(spec)  # its display has logged the study's line on stderr
     click.echo(f"start workers with: sweeper worker {redact(spec.storage_location)}")
 
 
@@ -127,8 +126,7 @@ def worker(study_location: str) -> None:
     """Join a study from this host and work until its budget is met."""
     from sweeper.sweep.launcher import join_sweep
 
-    result = join_sweep(study_location)
-    click.echo(result.snapshot.line())
+    _final_line(join_sweep(study_location).snapshot.line())
 
 
 def entry() -> None:
@@ -137,6 +135,14 @@ def entry() -> None:
     # collections skip torch's large object graph: about a second at every exit.
     atexit.register(gc.freeze)  # registered first, so it runs after every other exit handler
     main(prog_name="sweeper")
+
+
+def _final_line(line: str) -> None:
+    """The study's final line on stdout, unless the progress log already ended with it."""
+    from sweeper.sweep.progress import writes_plain_lines
+
+    if not writes_plain_lines():  # a live bar drew it; say it in words once
+        click.echo(line)
 
 
 def _finish(result: object, report_path: str | None) -> None:
@@ -148,7 +154,7 @@ def _finish(result: object, report_path: str | None) -> None:
             f"budget already met ({result.snapshot.counts.finished} finished trials); "
             "raise --trials to run more"
         )
-    click.echo(result.snapshot.line())
+    _final_line(result.snapshot.line())
     if result.best_line:
         click.echo(result.best_line)
     output = Path(report_path) if report_path else default_report_path(result.location)
@@ -156,8 +162,22 @@ def _finish(result: object, report_path: str | None) -> None:
         from sweeper.report.render import build_report
     except ImportError:  # the summary is optional until its package is installed
         return
-    written = build_report(result.location, output, result.study_name)
+    try:
+        written = build_report(result.location, output, result.study_name)
+    except KeyboardInterrupt:
+        raise _summary_interrupted(result.location, report_path) from None
     click.echo(f"summary: {written}")
+
+
+def _summary_interrupted(location: str, report_path: str | None) -> Interrupted:
+    """The sweep is over and stored; only the page is missing, and one command writes it."""
+    from sweeper.store.connect import redact
+
+    where = f" -o {report_path}" if report_path else ""
+    return Interrupted(
+        "interrupted while writing the summary; the study is intact. "
+        f"Write the summary with: sweeper report {redact(location)}{where}"
+    )
 
 
 def default_report_path(location: str) -> Path:
@@ -197,13 +217,23 @@ def report(study_location: str, output: str | None) -> None:
 @main.command()
 @click.argument("study_location", metavar="STUDY")
 @click.option("--format", "fmt", type=click.Choice(["csv", "json", "sqlite"]), required=True)
-@click.option("-o", "--output", type=click.Path(), required=True, help="Output path.")
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(),
+    required=True,
+    help="Output path; csv writes two files named after it (x.csv: x_trials.csv, x_epochs.csv).",
+)
 def export(study_location: str, fmt: str, output: str) -> None:
-    """Write flat tables of trials, parameters and epochs."""
-    from sweeper.report.export import export_study
+    """Write flat tables of trials, parameters and epochs.
 
-    for path in export_study(study_location, Path(output), fmt):  # type: ignore[arg-type]
-        click.echo(str(path))
+    json and sqlite write the one file PATH; csv writes one file per table beside it:
+    -o x.csv gives x_trials.csv and x_epochs.csv.
+    """
+    from sweeper.report.export import export_study, written_line
+
+    written = export_study(study_location, Path(output), fmt)  # type: ignore[arg-type]
+    click.echo(written_line(written, Path(output)))
 
 
 @main.command()

@@ -5,7 +5,10 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+from click.testing import CliRunner
 
+import sweeper.report.render
+from sweeper.cli import main
 from tests.conftest import invoke, write_tiny_spec
 
 SERIES = """
@@ -91,3 +94,21 @@ def test_every_command_has_help() -> None:
     for name in main.commands:
         result = invoke(name, "--help")
         assert result.exit_code == 0 and "Usage:" in result.output, name
+
+
+def test_ctrl_c_while_the_summary_is_written_says_how_to_write_it(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    def interrupted(*args: object) -> None:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(sweeper.report.render, "build_report", interrupted)
+    spec = write_tiny_spec(in_tmp, trials=1, epochs=1)
+    result = CliRunner().invoke(main, ["run", spec.name, "--report", "page.html"])
+    assert result.exit_code == 130
+    assert result.stderr.splitlines()[-1] == (
+        "sweeper: error: interrupted while writing the summary; the study is intact. "
+        "Write the summary with: sweeper report runs/tiny.db -o page.html"
+    )
+    monkeypatch.undo()
+    assert invoke("report", "runs/tiny.db", "-o", "page.html").exit_code == 0  # as it says

@@ -9,7 +9,8 @@ import pytest
 from sweeper.spec.loading import load_spec
 from tests.conftest import invoke
 
-EXAMPLES = sorted((Path(__file__).parent.parent / "search_spaces").glob("*.toml"))
+REPO = Path(__file__).parent.parent
+EXAMPLES = sorted((REPO / "search_spaces").glob("*.toml"))
 
 
 def test_there_are_examples() -> None:
@@ -28,3 +29,10 @@ def test_adding_demo_searches_the_four_knobs() -> None:
     spec = load_spec(demo)
     assert {"unroll", "hidden", "clip", "lr"} <= set(spec.search)
     assert spec.study.workers == 2
+
+
+def test_readme_shows_the_demo_file_exactly() -> None:
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    name = "search_spaces/adding_lstm_demo.toml"
+    after = readme.split(f"Example (`{name}`):\n\n```toml\n", 1)[1]
+    assert after.split("```\n", 1)[0] == (REPO / name).read_text(encoding="utf-8")

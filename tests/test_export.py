@@ -5,7 +5,9 @@ from __future__ import annotations
 import csv
 import json
 import math
+import os
 import sqlite3
+import stat
 from pathlib import Path
 
 import optuna
@@ -21,6 +23,7 @@ from sweeper.store.connect import open_storage
 from sweeper.store.epoch_rows import write_epoch
 from sweeper.store.tables import ensure_tables
 from sweeper.training.epoch_record import EpochRecord
+from tests.conftest import invoke
 
 SPACE = {
     "lr": FloatDistribution(1e-4, 1.0, log=True),
@@ -112,6 +115,34 @@ def test_csv_writes_two_files_with_exact_columns(location: str, tmp_path: Path) 
     )
     nan_row = dict(zip(EPOCHS, epochs[3], strict=True))
     assert nan_row["valid_loss"] == "" and nan_row["steps"] == "10"
+
+
+@pytest.mark.parametrize("fmt", ["csv", "json", "sqlite"])
+def test_exported_files_get_the_mode_the_umask_gives_new_files(
+    location: str, tmp_path: Path, fmt: str
+) -> None:
+    # POSIX open(2): a new file's mode is 0666 less the umask (here 0644)
+    before = os.umask(0o022)
+    try:
+        written = export_study(location, tmp_path / f"run.{fmt}", fmt)  # type: ignore[arg-type]
+    finally:
+        os.umask(before)
+    assert [stat.S_IMODE(path.stat().st_mode) for path in written] == [0o644] * len(written)
+
+
+def test_the_export_command_names_the_files_csv_writes(location: str, tmp_path: Path) -> None:
+    out = tmp_path / "x.csv"
+    result = invoke("export", location, "--format", "csv", "-o", str(out))
+    assert result.exit_code == 0, result.output
+    assert result.output == (
+        f"exported: {tmp_path / 'x_trials.csv'} and {tmp_path / 'x_epochs.csv'} "
+        "(csv writes one file per table, named after x.csv)\n"
+    )
+    assert not out.exists()
+    single = invoke("export", location, "--format", "json", "-o", str(tmp_path / "x.json"))
+    assert single.output == f"exported: {tmp_path / 'x.json'}\n"
+    helped = invoke("export", "--help").output
+    assert "x_trials.csv" in helped and "x_epochs.csv" in helped
 
 
 def test_json_holds_study_trials_and_epochs(location: str, tmp_path: Path) -> None:

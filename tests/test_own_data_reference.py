@@ -1,10 +1,12 @@
 """Sweeps on open data sets that registry packages ship inside themselves (no download).
 
 - The yearly sunspot numbers 1700-2008 shipped by statsmodels (``statsmodels.datasets.
-  sunspots``): the best model must beat the persistence forecast on the held-out tail.
+  sunspots``): on the held-out tail, the best model must forecast better than Yule's (1927)
+  second-order autoregression fitted by least squares on the same rows.
 - scikit-learn's handwritten digits (``sklearn.datasets.load_digits``, 1797 images of 8x8),
-  read as sequences of 8 rows of 8 pixels: the best model must reach 90% test accuracy
-  (simple classifiers exceed 95% on it: common practice, no source).
+  read as sequences of 8 rows of 8 pixels: the best model must classify the test split
+  better than a linear classifier (scikit-learn's ``LogisticRegression``) that sees every
+  pixel at once and is fitted on the same rows.
 """
 
 from __future__ import annotations
@@ -115,29 +117,56 @@ def test_time_split_holds_out_the_last_rows_of_the_real_series(tmp_path: Path) -
     np.testing.assert_allclose(task.input_scaling.mean, [activity[:217].mean()])
 
 
-def persistence_and_model_mse(model: SavedModel, activity: np.ndarray) -> tuple[float, float]:
-    """Both forecasts on every window of the held-out tail, in sunspot numbers."""
-    tail = activity[263:]  # the last 15% of the 309 years
-    starts = range(len(tail) - 24)
-    inputs = np.stack([tail[s : s + 24, None] for s in starts])
-    truth = np.stack([tail[s + 1 : s + 25, None] for s in starts])
-    forecast = model(inputs).numpy()
-    return float(np.mean((inputs - truth) ** 2)), float(np.mean((forecast - truth) ** 2))
+TAIL = 263  # train + valid rows (what `best --retrain` fits on); the last 15% is the test
 
 
-def test_sunspot_forecast_beats_persistence_on_the_held_out_tail(tmp_path: Path) -> None:
+def yule_ar2(activity: np.ndarray) -> np.ndarray:
+    """One-step forecasts of every year from the two before it: x_t = c + a x_{t-1} + b x_{t-2}
+    (Yule 1927, the sunspot model), fitted by least squares on the rows before the tail."""
+    fit = activity[:TAIL]
+    design = np.column_stack([np.ones(TAIL - 2), fit[1:-1], fit[:-2]])
+    (c, a, b), *_ = np.linalg.lstsq(design, fit[2:], rcond=None)
+    forecast = np.full_like(activity, np.nan)
+    forecast[2:] = c + a * activity[1:-1] + b * activity[:-2]
+    return forecast
+
+
+def forecast_errors(model: SavedModel, activity: np.ndarray) -> dict[str, float]:
+    """Mean squared error of each forecast on every window of the held-out tail."""
+    starts = range(TAIL, len(activity) - 24)
+    inputs = np.stack([activity[s : s + 24, None] for s in starts])
+    truth = np.stack([activity[s + 1 : s + 25, None] for s in starts])
+    ar2 = np.stack([yule_ar2(activity)[s + 1 : s + 25, None] for s in starts])
+    forecasts = {"persistence": inputs, "ar2": ar2, "model": model(inputs).numpy()}
+    return {name: float(np.mean((f - truth) ** 2)) for name, f in forecasts.items()}
+
+
+def test_sunspot_forecast_beats_an_autoregression_on_the_held_out_tail(tmp_path: Path) -> None:
     activity = sunspots(tmp_path)
     model = sweep_and_save(tmp_path, SUNSPOTS, trials=3, epochs=20)
-    persistence, forecast = persistence_and_model_mse(model, activity)
-    print(f"sunspots, test tail MSE: persistence {persistence:.1f}, model {forecast:.1f}")
-    assert forecast < 0.6 * persistence
+    errors = forecast_errors(model, activity)
+    print("sunspots, test tail MSE: " + ", ".join(f"{k} {v:.1f}" for k, v in errors.items()))
+    # The AR(2) sees the true two preceding years even at a window's first step, which the
+    # model does not, so beating it is a fair bar; the AR(2) itself must beat persistence.
+    assert errors["model"] < errors["ar2"] < errors["persistence"]
 
 
-def test_digit_rows_classifier_reaches_ninety_percent_on_the_test_split(tmp_path: Path) -> None:
+def test_digit_rows_classifier_beats_a_linear_one_on_the_test_split(tmp_path: Path) -> None:
     images, labels = digits(tmp_path)
     model = sweep_and_save(tmp_path, DIGITS, trials=3, epochs=20)
-    test = slice(len(labels) - round(len(labels) * 0.2), None)  # shuffle = false: the last 20%
-    predicted = model.predict(images[test]).numpy()
-    accuracy = float(np.mean(predicted == labels[test]))
-    print(f"digits as 8 rows of 8 pixels, test accuracy {accuracy:.4f}")
-    assert accuracy >= 0.90
+    start = len(labels) - round(len(labels) * 0.2)  # shuffle = false: the last 20% is the test
+    predicted = model.predict(images[start:]).numpy()
+    accuracy = float(np.mean(predicted == labels[start:]))
+    linear = linear_accuracy(images, labels, start)
+    print(f"digits as 8 rows of 8 pixels, test accuracy {accuracy:.4f}, linear {linear:.4f}")
+    assert accuracy > linear
+
+
+def linear_accuracy(images: np.ndarray, labels: np.ndarray, start: int) -> float:
+    """Test accuracy of scikit-learn's LogisticRegression on all 64 pixels at once, fitted on
+    the rows before the test split (train + valid, as `best --retrain` fits)."""
+    from sklearn.linear_model import LogisticRegression  # the test extra installs scikit-learn
+
+    pixels = images.reshape(len(images), -1)
+    linear = LogisticRegression(max_iter=1000).fit(pixels[:start], labels[:start])
+    return float(np.mean(linear.predict(pixels[start:]) == labels[start:]))

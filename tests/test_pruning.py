@@ -6,6 +6,7 @@ import io
 import math
 import random
 import sqlite3
+from collections import Counter
 from pathlib import Path
 
 import optuna
@@ -41,21 +42,38 @@ def _training_spec(stopping: str, epochs: int = 6, goal: str = "minimize") -> Sp
     return parse_spec(TRAINING_SPEC.format(goal=goal, epochs=epochs, stopping=stopping), "<t>")
 
 
+def _first_stop(study: optuna.Study, value: float, epochs: int) -> int:
+    """Run one trial as sweeper's trainer does: report every epoch, ask the rule after every
+    epoch but the last. The epoch it was stopped at, or ``epochs`` when it ran to the end."""
+    trial = study.ask()
+    for epoch in range(1, epochs + 1):
+        trial.report(value, epoch)
+        if epoch < epochs and trial.should_prune():
+            study.tell(trial, state=TrialState.PRUNED)
+            return epoch
+    study.tell(trial, value)
+    return epochs
+
+
 def test_hyperband_brackets_follow_li_et_al_2018() -> None:
-    # Li et al. 2018 (JMLR 18, "Hyperband"), Algorithm 1 and Table 1: for R = 81 and eta = 3,
-    # s_max = 4 and bracket s starts n = ceil((s_max + 1) / (s + 1) * eta^s) configurations
-    # on r = R * eta^-s epochs each: 81, 34, 15, 8, 5 configurations on 1, 3, 9, 27, 81.
-    R, eta = 81, 3
-    s_max = round(math.log(R, eta))
-    sizes = [math.ceil((s_max + 1) / (s + 1) * eta**s) for s in range(s_max, -1, -1)]
-    assert sizes == [81, 34, 15, 8, 5]
-    pruner = make_pruner(_training_spec('rule = "hyperband"\nreduction = 3', epochs=R))
-    assert isinstance(pruner, optuna.pruners.HyperbandPruner)
-    pruner._try_initialization(optuna.create_study())
-    assert pruner._n_brackets == s_max + 1
-    assert pruner._trial_allocation_budgets == sizes
-    first_decisions = [p._min_resource * eta**p._min_early_stopping_rate for p in pruner._pruners]
-    assert first_decisions == [R * eta**-s for s in range(s_max, -1, -1)]
+    # Li et al. 2018 (JMLR 18, "Hyperband"), Table 1, R = 81 and eta = 3: five brackets
+    # that start 81, 34, 15, 8 and 5 configurations on 1, 3, 9, 27 and 81 epochs each; the
+    # last never stops anything. Every trial here is worse than all before it, so each one is
+    # stopped at the first decision of its bracket (unless it is alone in that rung): the
+    # epochs trials stop at are the brackets' first budgets, in shares of 81 : 34 : 15 : 8 : 5.
+    R, trials = 81, 1430
+    spec = _training_spec('rule = "hyperband"\nmin_epochs = 1\nreduction = 3', epochs=R)
+    study = optuna.create_study(study_name="brackets", pruner=make_pruner(spec))
+    ends = Counter(_first_stop(study, float(number), R) for number in range(trials))
+    assert sorted(ends) == [1, 3, 9, 27, 81]
+    sizes = {1: 81, 3: 34, 9: 15, 27: 8, 81: 5}
+    for epoch, size in sizes.items():
+        # a trial's bracket comes from a hash of the study name and trial number (optuna's
+        # HyperbandPruner docs), which spreads trials like independent draws with these
+        # shares: allow three binomial standard deviations
+        share = size / sum(sizes.values())
+        spread = 3 * math.sqrt(share * (1 - share) / trials)
+        assert ends[epoch] / trials == pytest.approx(share, abs=spread), (epoch, ends)
 
 
 def _asha_study(goal: str = "minimize") -> optuna.Study:

@@ -3,7 +3,11 @@
 from __future__ import annotations
 
 import json
+import os
 import re
+import stat
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import optuna
@@ -15,7 +19,7 @@ from optuna.trial import TrialState
 from benchmarks.synthetic_study import make_synthetic_study, synthetic_trial
 from sweeper.report.collect import read_study
 from sweeper.report.escape import script_json
-from sweeper.report.render import build_report, render_page
+from sweeper.report.render import build_report, render_page, write_page
 from sweeper.store.connect import open_storage
 
 SCRIPT = "<script>alert(1)</script>"
@@ -213,7 +217,27 @@ def test_build_report_writes_a_whole_page(tmp_path: Path) -> None:
     page = output.read_text(encoding="utf-8")
     assert page.startswith("<!doctype html>") and page.rstrip().endswith("</html>")
     assert len(_figures(page)) == 9
-    assert not list(output.parent.glob(".summary-*"))  # no temporary file left behind
+    assert [p.name for p in output.parent.iterdir()] == ["summary.html"]  # nothing left
+
+
+@contextmanager
+def umask(mask: int) -> Iterator[None]:
+    """The process's umask set for a block and restored after it."""
+    before = os.umask(mask)
+    try:
+        yield
+    finally:
+        os.umask(before)
+
+
+@pytest.mark.parametrize(("mask", "mode"), [(0o022, 0o644), (0o027, 0o640), (0o002, 0o664)])
+def test_the_summary_gets_the_mode_the_umask_gives_new_files(
+    tmp_path: Path, mask: int, mode: int
+) -> None:
+    # POSIX open(2): a new file's mode is 0666 less the umask; a summary is no exception
+    with umask(mask):
+        written = write_page("<!doctype html>", tmp_path / "summary.html")
+    assert stat.S_IMODE(written.stat().st_mode) == mode
 
 
 @pytest.mark.parametrize("text", [SCRIPT, BREAKOUT, "a\u2028b\u2029c", "&amp; <!-- -->"])

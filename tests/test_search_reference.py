@@ -70,6 +70,8 @@ def test_the_functions_take_their_published_minima() -> None:
         assert branin_value(x1, x2) == pytest.approx(BRANIN_MINIMUM, abs=1e-5)
     best = [0.20169, 0.150011, 0.476874, 0.275332, 0.311652, 0.6573]
     assert hartmann6_value(best) == pytest.approx(HARTMANN6_MINIMUM, abs=1e-4)
+    # and away from them: by hand, Branin(0, 0) = 36 + 10 (1 - 1/(8 pi)) + 10 = 55.6;
+    # Hartmann-6 at the centre of the cube is -0.505 (hartmann6_value)
     assert branin_value(0.0, 0.0) > 50 and hartmann6_value([0.5] * 6) > -1.0
 
 
@@ -100,6 +102,8 @@ HARTMANN6_SPACE = "".join(f"x{j} = {{ between = [0.0, 1.0] }}\n" for j in range(
 def test_tpe_gets_near_the_branin_minimum_and_beats_random_search(tmp_path: Path) -> None:
     tpe = _best_values("branin", BRANIN_SPACE, "tpe", tmp_path)
     random = _best_values("branin", BRANIN_SPACE, "random", tmp_path)
+    # "close": within 0.05 of the minimum, about 0.1% of Branin's range over the box (its
+    # value at (0, 0) alone is 55.6); our bar, common practice, no published figure
     close = [value - BRANIN_MINIMUM <= 0.05 for value in tpe]
     assert sum(close) > len(close) / 2, (tpe, random)
     assert statistics.median(tpe) < statistics.median(random), (tpe, random)
@@ -109,6 +113,9 @@ def test_tpe_beats_random_search_on_hartmann6(tmp_path: Path) -> None:
     tpe = _best_values("hartmann6", HARTMANN6_SPACE, "tpe", tmp_path)
     random = _best_values("hartmann6", HARTMANN6_SPACE, "random", tmp_path)
     assert min(tpe) >= HARTMANN6_MINIMUM - 1e-6  # no study can beat the true minimum
-    # six dimensions in 100 trials: our bar is the median within 0.2 of the minimum
+    # six dimensions in 100 trials: our bar (common practice, no published figure) is the
+    # median within 0.2 of the minimum, which still admits the basin of Hartmann-6's
+    # runner-up local minimum, -3.2032 (derived: scipy.optimize.minimize on hartmann6_value
+    # started from the fourth row of P), but not the centre of the cube (-0.505)
     assert statistics.median(tpe) - HARTMANN6_MINIMUM <= 0.2, tpe
     assert statistics.median(tpe) < statistics.median(random), (tpe, random)

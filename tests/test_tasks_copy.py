@@ -1,4 +1,4 @@
-"""The copy-memory task: layout and the 10·ln 8/(T+20) baseline."""
+"""The copy-memory task: layout and the 10·ln 8/(delay + 20) baseline."""
 
 import math
 from pathlib import Path
@@ -8,6 +8,8 @@ import torch
 import torch.nn.functional as F
 
 from sweeper.tasks.registry import build_task
+
+README = Path(__file__).resolve().parents[1] / "README.md"
 
 
 def copy_task(**options):
@@ -49,3 +51,12 @@ def test_metric_counts_only_the_ten_recall_steps():
     assert task.metric(perfect, data) == 1.0
     blanks = F.one_hot(torch.zeros_like(data.targets), task.output_size).float()
     assert task.metric(blanks, data) == 0.0
+
+
+def test_the_printed_baseline_formula_is_the_one_readme_gives():
+    (row,) = [
+        line for line in README.read_text(encoding="utf-8").splitlines() if "| `copy` |" in line
+    ]
+    formula = row.rstrip(" |").rsplit("|", 1)[1].strip()  # the table's baseline column
+    assert formula == "cross-entropy 10·ln 8/(delay + 20)"
+    assert copy_task(delay=30).baseline().description.startswith(f"{formula} = ")

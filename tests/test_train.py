@@ -246,33 +246,66 @@ def _pascanu(grads: list[np.ndarray], threshold: float) -> list[np.ndarray]:
     return [threshold * g / norm for g in grads] if norm >= threshold else grads
 
 
-def _with_grads(seed: int) -> list[torch.Tensor]:
-    generator = torch.Generator().manual_seed(seed)
-    weights = [torch.zeros(shape, requires_grad=True) for shape in [(4, 3), (3,), (2, 2, 2)]]
-    for w in weights:
-        w.grad = torch.randn(w.shape, generator=generator)
+def _global_norm(grads: list[np.ndarray]) -> float:
+    """||g|| over all parameters together, by hand in float64."""
+    return math.sqrt(sum(float((g.astype(np.float64) ** 2).sum()) for g in grads))
+
+
+def _with_grads(values: list[torch.Tensor]) -> list[torch.Tensor]:
+    weights = [torch.zeros(v.shape, dtype=v.dtype, requires_grad=True) for v in values]
+    for w, v in zip(weights, values, strict=True):
+        w.grad = v.clone()
     return weights
 
 
-@pytest.mark.parametrize("ratio", [0.25, 1.0, 4.0, 0.0])
-def test_clip_gradients_matches_torch_and_pascanu(ratio: float) -> None:
-    ours, theirs = _with_grads(0), _with_grads(0)
-    before = [w.grad.numpy().copy() for w in ours]
-    norm = float(torch.linalg.vector_norm(torch.cat([w.grad.flatten() for w in ours])))
-    threshold = ratio * norm  # ratio 1.0: exactly at the boundary; 0.0: clipping off
-    got = clip_gradients(ours, threshold)
-    assert float(got) == pytest.approx(norm, rel=1e-6)
-    expected_norm = torch.nn.utils.clip_grad_norm_(theirs, threshold if ratio else math.inf)
-    # torch.nn.utils.clip_grad_norm_ is the reference implementation of the same rule.
-    assert torch.equal(got, expected_norm)
-    for w, reference in zip(ours, theirs, strict=True):
-        assert torch.equal(w.grad, reference.grad) or ratio == 0.0
-    if ratio == 0.0:
-        for w, b in zip(ours, before, strict=True):
-            assert np.array_equal(w.grad.numpy(), b)
-        return
-    for w, expected in zip(ours, _pascanu(before, threshold), strict=True):
-        np.testing.assert_allclose(w.grad.numpy(), expected, rtol=1e-5)
+def _normal_grads(seed: int) -> list[torch.Tensor]:
+    generator = torch.Generator().manual_seed(seed)
+    shapes = [(4, 3), (3,), (2, 2, 2)]
+    return _with_grads([torch.randn(s, generator=generator, dtype=torch.float64) for s in shapes])
+
+
+def _grads(weights: list[torch.Tensor]) -> list[np.ndarray]:
+    return [w.grad.numpy().copy() for w in weights]
+
+
+def test_clip_rescales_every_parameter_by_the_global_norm() -> None:
+    # Worked by hand: gradients (3, 4) and (12,) have the global L2 norm
+    # sqrt(9 + 16 + 144) = 13, though each alone is below 13 (5 and 12). Pascanu, Mikolov &
+    # Bengio 2013, Algorithm 1, threshold 6.5: 13 >= 6.5, so g <- 6.5 * g / 13 = g / 2 for
+    # both at once. Clipping each parameter by its own norm would give (3, 4) and (6.5,).
+    weights = _with_grads([torch.tensor([3.0, 4.0]), torch.tensor([12.0])])
+    norm = clip_gradients(weights, 6.5)
+    assert float(norm) == pytest.approx(13.0, rel=1e-6)  # the norm from before clipping
+    first, second = _grads(weights)
+    np.testing.assert_allclose(first, [1.5, 2.0], rtol=1e-6)
+    np.testing.assert_allclose(second, [6.0], rtol=1e-6)
+
+
+@pytest.mark.parametrize("ratio", [0.25, 0.5, 1.0])
+def test_clip_at_or_above_the_threshold_follows_pascanu(ratio: float) -> None:
+    weights = _normal_grads(seed=0)
+    before = _grads(weights)
+    norm = _global_norm(before)
+    threshold = ratio * norm  # ratio 1.0: exactly at the threshold, where g stays g
+    returned = clip_gradients(weights, threshold)
+    assert float(returned) == pytest.approx(norm, rel=1e-12)
+    after = _grads(weights)
+    for got, expected in zip(after, _pascanu(before, threshold), strict=True):
+        np.testing.assert_allclose(got, expected, rtol=1e-6)
+    assert _global_norm(after) == pytest.approx(threshold, rel=1e-6)
+
+
+@pytest.mark.parametrize("ratio", [0.0, 4.0])
+def test_clip_off_or_below_the_threshold_leaves_gradients_bit_identical(ratio: float) -> None:
+    # ratio 0: clip = 0 turns clipping off (DESIGN, "One trial"); ratio 4: ||g|| < threshold,
+    # where Algorithm 1 leaves g alone. Either way the pre-clip norm is still returned.
+    weights = _normal_grads(seed=1)
+    before = _grads(weights)
+    norm = _global_norm(before)
+    returned = clip_gradients(weights, ratio * norm)
+    assert float(returned) == pytest.approx(norm, rel=1e-12)
+    for got, unchanged in zip(_grads(weights), before, strict=True):
+        assert np.array_equal(got, unchanged)
 
 
 @pytest.mark.parametrize("clip", [0.0, 0.02])

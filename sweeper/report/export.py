@@ -14,7 +14,6 @@ import json
 import math
 import os
 import sqlite3
-import tempfile
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import closing, contextmanager
 from pathlib import Path
@@ -24,6 +23,7 @@ import sqlite_utils
 
 from sweeper.errors import InputError
 from sweeper.report.collect import ParamInfo, StudyTables, TrialRow, read_study
+from sweeper.report.new_file import create_beside
 from sweeper.store.connect import sqlite_path, storage_url
 from sweeper.training.epoch_record import EPOCH_FIELDS
 
@@ -79,6 +79,14 @@ def export_study(
     output = Path(output)
     _refuse_source(location, output)
     return writers[fmt](read_study(location, study_name), output)
+
+
+def written_line(written: Sequence[Path], requested: Path) -> str:
+    """What an export wrote, saying so when csv's file names differ from the one asked for."""
+    names = " and ".join(str(path) for path in written)
+    if list(written) == [requested]:
+        return f"exported: {names}"
+    return f"exported: {names} (csv writes one file per table, named after {requested.name})"
 
 
 def param_column(name: str) -> str:
@@ -254,10 +262,8 @@ def _kind(value: Any) -> type:
 @contextmanager
 def _replacing(path: Path) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; move it into place only if writing succeeded."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    handle, temporary = create_beside(path, ".part")
     os.close(handle)
-    temporary = Path(name)
     try:
         yield temporary
         os.replace(temporary, path)

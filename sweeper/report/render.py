@@ -5,7 +5,6 @@ from __future__ import annotations
 import base64
 import hashlib
 import os
-import tempfile
 from datetime import datetime
 from importlib import metadata, resources
 from pathlib import Path
@@ -17,6 +16,7 @@ from sweeper.report.collect import StudyTables, read_study
 from sweeper.report.escape import esc, script_json
 from sweeper.report.html_parts import FigureBook, missing, section
 from sweeper.report.importance import REPLICATES, param_importance
+from sweeper.report.new_file import create_beside
 from sweeper.report.sections_choice import outcome_section, ranked_section
 from sweeper.report.sections_gradients import gradients_section
 from sweeper.report.sections_operations import failures_section, retries_section
@@ -65,14 +65,13 @@ def build_report(location: str, output: Path, study_name: str | None = None) -> 
 
 def write_page(page: str, output: Path) -> Path:
     """Write atomically, so that a reader never sees half a page."""
-    output.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(dir=output.parent, prefix=".summary-", suffix=".html")
+    handle, temporary = create_beside(output, ".part")
     try:
         with os.fdopen(handle, "w", encoding="utf-8") as stream:
             stream.write(page)
         os.replace(temporary, output)
     except BaseException:
-        Path(temporary).unlink(missing_ok=True)
+        temporary.unlink(missing_ok=True)
         raise
     return output
 

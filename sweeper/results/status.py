@@ -10,6 +10,15 @@ from rich.table import Table
 from sweeper.sweep.progress import Snapshot, format_seconds
 
 
+def _eta_text(snap: Snapshot) -> str:
+    # With nothing running and budget left, no one is working on the study: an estimate of
+    # when it will finish would only mislead.
+    idle = snap.counts.running == 0 and snap.counts.finished < snap.budget
+    if idle or snap.eta_seconds is None:
+        return "-"
+    return format_seconds(snap.eta_seconds)
+
+
 def status_table(snap: Snapshot) -> str:
     counts = snap.counts
     summary = Table(title=f"study {snap.study_name}", show_header=True)
@@ -17,7 +26,7 @@ def status_table(snap: Snapshot) -> str:
     for column in (*columns, "best", "ETA"):
         summary.add_column(column, justify="right")
     best = "-" if snap.best_value is None else f"{snap.best_value:.5g} (trial {snap.best_trial})"
-    eta = "-" if snap.eta_seconds is None else format_seconds(snap.eta_seconds)
+    eta = _eta_text(snap)
     summary.add_row(
         str(snap.budget),
         str(counts.complete),

@@ -109,13 +109,19 @@ def snapshot(study: optuna.Study, budget: int, workers: int) -> Snapshot:
     )
 
 
+def writes_plain_lines(stream: IO[str] | None = None) -> bool:
+    """Whether a display on ``stream`` (stderr by default) logs plain lines, the final one
+    included, rather than drawing a live bar: so whenever it is not a terminal."""
+    return not (stream or sys.stderr).isatty()
+
+
 class ProgressDisplay:
     """A live bar on a terminal; a plain log line every ``interval`` seconds elsewhere."""
 
     def __init__(self, stream: IO[str] | None = None, interval: float = 10.0) -> None:
         self.stream = stream or sys.stderr
         self.interval = interval
-        self.live = self.stream.isatty()
+        self.live = not writes_plain_lines(self.stream)
         self._last_line = ""
         self._last_time = 0.0
         self._bar: Any = None

@@ -58,7 +58,7 @@ class CopyTask(CachedTask):
         return Baseline(
             value,
             "valid_loss",
-            f"cross-entropy 10·ln 8/(T+20) = {value:.4f} nats of predicting blank until the "
+            f"cross-entropy 10·ln 8/(delay + 20) = {value:.4f} nats of predicting blank until the "
             "delimiter, then a uniform guess over the 8 symbols (Arjovsky et al. 2016)",
         )
 
