@@ -8,7 +8,7 @@ setup:
 	python3 -m venv $(VENV) && $(PY) -m pip install -q -e ".[dev]"
 
 test:
-	$(PY) -m pytest -m "not slow" -q
+	$(PY) -m pytest -m "not slow" -q --durations=10
 
 test-all:
 	$(PY) -m pytest -q
