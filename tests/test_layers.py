@@ -1,4 +1,4 @@
-"""The package's shape: no import circles, the trainer free of storage, optuna's internals in one place."""
+"""The package's shape: no import circles, a trainer free of storage, one optuna adapter."""
 
 from __future__ import annotations
 
