@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pytest
 from optuna.trial import TrialState
 
 from tests import processes as proc
@@ -37,6 +38,7 @@ rule = "none"  # every trial must complete
 """
 
 
+@pytest.mark.slow  # 8 worker processes on 2 cores
 def test_eight_workers_two_hundred_short_trials(tmp_path: Path) -> None:
     (tmp_path / "waves.py").write_text(PLUGIN)
     (tmp_path / "many.toml").write_text(SPEC)

@@ -99,6 +99,7 @@ BRANIN_SPACE = "x1 = { between = [-5.0, 10.0] }\nx2 = { between = [0.0, 15.0] }\
 HARTMANN6_SPACE = "".join(f"x{j} = {{ between = [0.0, 1.0] }}\n" for j in range(1, 7))
 
 
+@pytest.mark.slow  # whole reference sweeps: thousands of trials
 def test_tpe_gets_near_the_branin_minimum_and_beats_random_search(tmp_path: Path) -> None:
     tpe = _best_values("branin", BRANIN_SPACE, "tpe", tmp_path)
     random = _best_values("branin", BRANIN_SPACE, "random", tmp_path)
@@ -109,6 +110,7 @@ def test_tpe_gets_near_the_branin_minimum_and_beats_random_search(tmp_path: Path
     assert statistics.median(tpe) < statistics.median(random), (tpe, random)
 
 
+@pytest.mark.slow  # whole reference sweeps: thousands of trials
 def test_tpe_beats_random_search_on_hartmann6(tmp_path: Path) -> None:
     tpe = _best_values("hartmann6", HARTMANN6_SPACE, "tpe", tmp_path)
     random = _best_values("hartmann6", HARTMANN6_SPACE, "random", tmp_path)
