@@ -115,7 +115,7 @@ def canonical_toml(spec: Spec) -> str:
     training = dataclasses.asdict(spec.training)
     document = {
         "study": dataclasses.asdict(spec.study),
-        "task": spec.task,
+        "task": spec.task.table(),
         "training": {**training.pop("defaults"), **training},
         "search": {name: _entry_toml(entry) for name, entry in spec.search.items()},
         "stopping": dataclasses.asdict(spec.stopping),
