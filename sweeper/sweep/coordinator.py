@@ -36,9 +36,9 @@ def _queue_short(snap: Snapshot, workers: int) -> bool:
 
 
 def stored_budget(study: optuna.Study, spec: Spec) -> Spec:
-    """The spec with the budget of the latest launch (another host may have raised it)."""
-    info = StudyInfo.of(study)
-    return spec.with_overrides(trials=info.budget, workers=info.workers)
+    """The spec with the stored budget (another host may have raised it). The worker count
+    stays this launch's: a --workers override is not stored."""
+    return spec.with_overrides(trials=StudyInfo.of(study).budget)
 
 
 class Coordinator:
