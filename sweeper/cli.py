@@ -61,7 +61,11 @@ def check(specs: tuple[str, ...]) -> None:
     help="Worker processes (overrides study.workers); 0 queues the trials for `sweeper worker`.",
 )
 @click.option("--trials", type=int, help="Trial budget (overrides study.trials).")
-@click.option("--storage", help="Study database: a .db path or a storage URL.")
+@click.option(
+    "--storage",
+    help="Study database: a .db path (relative to the current folder) or a storage URL. "
+    "Default: study.storage, whose path is relative to the spec's folder.",
+)
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Summary path.")
 @click.option("--cluster", metavar="ADDRESS", help="Place the workers on this Dask scheduler.")
 def run(
@@ -146,6 +150,7 @@ def _final_line(line: str) -> None:
 
 
 def _finish(result: object, report_path: str | None) -> None:
+    from sweeper.store.connect import redact
     from sweeper.sweep.launcher import SweepResult
 
     assert isinstance(result, SweepResult)
@@ -157,6 +162,7 @@ def _finish(result: object, report_path: str | None) -> None:
     _final_line(result.snapshot.line())
     if result.best_line:
         click.echo(result.best_line)
+    click.echo(f"study: {redact(result.location)}")
     output = Path(report_path) if report_path else default_report_path(result.location)
     try:
         from sweeper.report.render import build_report
