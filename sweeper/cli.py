@@ -89,6 +89,8 @@ def run(
     if workers == 0:
         _queue(read(check_task=True))
         return
+    if not cluster:  # a cluster's workers bring their own cores
+        _warn_if_crowded(read(check_task=False))
     # The pool's processes load torch while this one checks the spec against its task.
     with local_pool(0 if cluster else read(check_task=False).study.workers) as pool:
         with collector_paused():  # checking the spec against its task imports torch
@@ -121,7 +123,22 @@ def resume(
 
     _study, spec = load_existing(study_location)
     spec = spec.with_overrides(trials=trials, workers=workers, storage=study_location)
+    _warn_if_crowded(spec)
     _finish(run_sweep(spec), report_path)
+
+
+def _warn_if_crowded(spec: Spec) -> None:
+    """One line on stderr when the local workers' torch threads outnumber the cores."""
+    from sweeper.sweep.cores import share_of_cores, usable_cores
+
+    workers, cores = spec.study.workers, usable_cores()
+    threads = spec.training.threads or share_of_cores(workers)
+    if workers * threads > cores:
+        click.echo(
+            f"sweeper: warning: {workers} workers x {threads} torch threads on {cores} cores: "
+            f"trials slow each other down; use --workers {max(1, cores // threads)}",
+            err=True,
+        )
 
 
 @main.command()
@@ -130,7 +147,8 @@ def worker(study_location: str) -> None:
     """Join a study from this host and work until its budget is met."""
     from sweeper.sweep.launcher import join_sweep
 
-    _final_line(join_sweep(study_location).snapshot.line())
+    result = join_sweep(study_location, tell=lambda line: click.echo(line, err=True))
+    _final_line(result.snapshot.line())
 
 
 def entry() -> None:
