@@ -72,7 +72,7 @@ def test_storage_in_a_spec_is_relative_to_the_spec_s_folder(in_tmp: Path) -> Non
     write_tiny_spec(folder, extra="")
     default = load_spec("specs/tiny.toml")
     assert Path(default.storage_location) == Path("specs/runs/tiny.db")
-    text = (folder / "tiny.toml").read_text().replace('seed = 3', 'seed = 3\nstorage = "db/t.db"')
+    text = (folder / "tiny.toml").read_text().replace("seed = 3", 'seed = 3\nstorage = "db/t.db"')
     (folder / "tiny.toml").write_text(text)
     named = load_spec("specs/tiny.toml")
     assert Path(named.storage_location) == Path("specs/db/t.db")

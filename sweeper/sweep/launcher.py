@@ -262,7 +262,7 @@ def _watch(
     thread = _start_workers(spec, placement, stop, finished, errors)
     try:
         while not finished.wait(WATCH_SECONDS):
-            if stop_requested(coordinator.study) is not None:
+            if stop_requested(coordinator.view) is not None:  # a read: never waits to write
                 stop.set()  # relayed to the in-process worker (set here or by another host)
             if stop.is_set():
                 _stop_workers(coordinator, finished, placement.joined)
