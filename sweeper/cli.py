@@ -61,7 +61,11 @@ def check(specs: tuple[str, ...]) -> None:
     help="Worker processes (overrides study.workers); 0 queues the trials for `sweeper worker`.",
 )
 @click.option("--trials", type=int, help="Trial budget (overrides study.trials).")
-@click.option("--storage", help="Study database: a .db path or a storage URL.")
+@click.option(
+    "--storage",
+    help="Study database: a .db path (relative to the current folder) or a storage URL. "
+    "Default: study.storage, whose path is relative to the spec's folder.",
+)
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Summary path.")
 @click.option("--cluster", metavar="ADDRESS", help="Place the workers on this Dask scheduler.")
 def run(
@@ -85,6 +89,8 @@ def run(
     if workers == 0:
         _queue(read(check_task=True))
         return
+    if not cluster:  # a cluster's workers bring their own cores
+        _warn_if_crowded(read(check_task=False))
     # The pool's processes load torch while this one checks the spec against its task.
     with local_pool(0 if cluster else read(check_task=False).study.workers) as pool:
         with collector_paused():  # checking the spec against its task imports torch
@@ -117,7 +123,22 @@ def resume(
 
     _study, spec = load_existing(study_location)
     spec = spec.with_overrides(trials=trials, workers=workers, storage=study_location)
+    _warn_if_crowded(spec)
     _finish(run_sweep(spec), report_path)
+
+
+def _warn_if_crowded(spec: Spec) -> None:
+    """One line on stderr when the local workers' torch threads outnumber the cores."""
+    from sweeper.sweep.cores import share_of_cores, usable_cores
+
+    workers, cores = spec.study.workers, usable_cores()
+    threads = spec.training.threads or share_of_cores(workers)
+    if workers * threads > cores:
+        click.echo(
+            f"sweeper: warning: {workers} workers x {threads} torch threads on {cores} cores: "
+            f"trials slow each other down; use --workers {max(1, cores // threads)}",
+            err=True,
+        )
 
 
 @main.command()
@@ -126,7 +147,8 @@ def worker(study_location: str) -> None:
     """Join a study from this host and work until its budget is met."""
     from sweeper.sweep.launcher import join_sweep
 
-    _final_line(join_sweep(study_location).snapshot.line())
+    result = join_sweep(study_location, tell=lambda line: click.echo(line, err=True))
+    _final_line(result.snapshot.line())
 
 
 def entry() -> None:
@@ -146,6 +168,7 @@ def _final_line(line: str) -> None:
 
 
 def _finish(result: object, report_path: str | None) -> None:
+    from sweeper.store.connect import redact
     from sweeper.sweep.launcher import SweepResult
 
     assert isinstance(result, SweepResult)
@@ -157,6 +180,7 @@ def _finish(result: object, report_path: str | None) -> None:
     _final_line(result.snapshot.line())
     if result.best_line:
         click.echo(result.best_line)
+    click.echo(f"study: {redact(result.location)}")
     output = Path(report_path) if report_path else default_report_path(result.location)
     try:
         from sweeper.report.render import build_report

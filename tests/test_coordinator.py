@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import sqlite3
+import threading
+import time
 from pathlib import Path
 
 import pytest
@@ -53,3 +56,35 @@ def test_no_step_before_it_is_due(
         assert steps == [1]
     finally:
         coordinator.close()
+
+
+class _Recording(ProgressDisplay):
+    def __init__(self) -> None:
+        super().__init__(interval=0)
+        self.shown: list[Snapshot] = []
+
+    def update(self, snap: Snapshot) -> None:
+        self.shown.append(snap)
+
+
+def test_the_display_never_waits_for_the_write_lock(in_tmp: Path) -> None:
+    """Many busy workers hold SQLite's write lock most of the time; the launcher's display
+    must still move (it froze at 0 finished while 17 trials finished)."""
+    spec = load_spec(write_tiny_spec(in_tmp, trials=3, epochs=1))
+    display = _Recording()
+    coordinator = Coordinator(open_for_launch(spec), spec, display)
+    locker = sqlite3.connect(in_tmp / "runs" / "tiny.db", isolation_level=None)
+    locker.execute("BEGIN IMMEDIATE")  # as a worker writing its epoch
+    stepping = threading.Thread(target=coordinator.step)
+    try:
+        stepping.start()
+        deadline = time.monotonic() + 10
+        while not display.shown and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert display.shown and stepping.is_alive()  # shown while the step waits to write
+    finally:
+        locker.rollback()
+        stepping.join(60)
+        coordinator.close()
+        locker.close()
+    assert display.shown[-1].counts.waiting == 3  # once written, the queued trials show

@@ -121,6 +121,8 @@ class Spec:
     training: TrainingSection
     search: dict[str, SearchEntry]
     stopping: StoppingSection
+    # the settings a command line set for this launch (``with_overrides``), not the file
+    overrides: frozenset[str] = frozenset()
 
     @property
     def is_objective_plugin(self) -> bool:
@@ -132,7 +134,14 @@ class Spec:
 
     @property
     def storage_location(self) -> str:
-        return self.study.storage or f"runs/{self.study.name}.db"
+        """Where the study is stored. A path in the spec (and the default) is relative to the
+        spec's folder, as ``task.file`` is; one from the command line is relative to the
+        current folder, as a shell user expects; a URL is used as written."""
+        location = self.study.storage or f"runs/{self.study.name}.db"
+        if "://" in location or "storage" in self.overrides or not self.source:
+            return location
+        path = Path(location).expanduser()
+        return str(path if path.is_absolute() else self.base_dir / path)
 
     def canonical(self) -> dict[str, Any]:
         """The parsed spec as plain data: what two launches of one study must agree on."""
@@ -162,7 +171,8 @@ class Spec:
             changes["workers"] = _positive(self.source, "--workers", workers)
         if storage is not None:
             changes["storage"] = storage
-        return dataclasses.replace(self, study=dataclasses.replace(self.study, **changes))
+        study = dataclasses.replace(self.study, **changes)
+        return dataclasses.replace(self, study=study, overrides=self.overrides | set(changes))
 
 
 def _positive(source: str, key: str, value: int) -> int:

@@ -9,14 +9,15 @@ Study user attributes (written at each launch by ``write_launch``; the report, t
 ``spec_text``       the spec file's text; a study without it was not made by sweeper
 ``spec_source``     the spec file's absolute path ("" when it came from no file)
 ``spec_hash``       the spec's digest; a launch with another digest is refused
-``spec_data``       the canonical spec as JSON text, to name the keys a changed spec changed
+``spec_data``       the canonical spec as its file has it (no command-line override), as JSON
+                    text, to name the keys a changed spec changed
 ``task``            the task's name (``"objective"`` for an objective plugin)
 ``task_description`` the task in one line
 ``baseline``        ``{value, measure, description}``: the trivial strategy's score, or null
 ``objective``       what a trial's value is: ``valid_loss``, ``valid_metric`` or ``value``
 ``metric_name``     the task's metric (``value`` for an objective plugin)
-``budget``          the trial budget of the latest launch (another host may have raised it)
-``workers``         the worker count of the latest launch
+``budget``          the trial budget; changed only by a launch that adds trials (``launch_budget``)
+``workers``         the spec file's worker count (a --workers override is not stored)
 ``stop_request``    null, or why every worker should stop now (``set_stop_request``)
 ==================  ==========================================================================
 

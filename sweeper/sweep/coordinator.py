@@ -15,7 +15,7 @@ from sweeper.errors import TooManyFailures
 from sweeper.spec.sections import Spec
 from sweeper.store import tables
 from sweeper.store.attrs import StudyInfo, TrialInfo
-from sweeper.store.connect import engine_of, redact
+from sweeper.store.connect import engine_of, is_sqlite, open_storage, redact, storage_url
 from sweeper.store.heartbeat import HeartbeatTiming
 from sweeper.store.optuna_internals import rdb_storage, retry_stale_trials, set_heartbeat
 from sweeper.sweep import lease
@@ -36,9 +36,22 @@ def _queue_short(snap: Snapshot, workers: int) -> bool:
 
 
 def stored_budget(study: optuna.Study, spec: Spec) -> Spec:
-    """The spec with the budget of the latest launch (another host may have raised it)."""
-    info = StudyInfo.of(study)
-    return spec.with_overrides(trials=info.budget, workers=info.workers)
+    """The spec with the stored budget (another host may have raised it). The worker count
+    stays this launch's: a --workers override is not stored."""
+    return spec.with_overrides(trials=StudyInfo.of(study).budget)
+
+
+def read_view(study: optuna.Study, location: str) -> optuna.Study:
+    """The study through a connection that only reads.
+
+    On SQLite every transaction of a writing connection takes the write lock first (see
+    ``connect._begin_immediate``), reads too; with many workers on few cores the lock is
+    nearly always held, and the launcher's display waited behind it for minutes.
+    """
+    if not is_sqlite(storage_url(location)):
+        return study  # a server's reads do not wait for its writers
+    storage = open_storage(location, create=False, read_only=True)
+    return optuna.load_study(study_name=study.study_name, storage=storage)
 
 
 class Coordinator:
@@ -59,21 +72,35 @@ class Coordinator:
         set_heartbeat(backend, HeartbeatTiming(spec.study.heartbeat))
         retry_stale_trials(backend, spec.study.max_retries)
         tables.ensure_tables(engine_of(study))
+        self.view = read_view(study, spec.storage_location)  # the display's reads
         self._due = 0.0  # when `step_when_due` steps next (time.monotonic)
 
     def step(self) -> Snapshot:
-        self.spec = stored_budget(self.study, self.spec)
+        """Show the study's state, then (as the lease holder) queue and fail trials.
+
+        The display comes first, from the read-only view, which never waits for SQLite's
+        write lock; the writes below wait for it, behind every busy worker.
+        """
+        self.spec = stored_budget(self.view, self.spec)
+        snap = self._show()
         timing = HeartbeatTiming(self.spec.study.heartbeat)
         engine = engine_of(self.study)
+        queued = 0
         if lease.acquire(engine, self.study.study_name, self.holder, timing.lease_seconds):
             fail_stale_trials(self.study)
             fail_unstarted_trials(self.study, timing.unstarted_after)
             self._check_failures()
-            self.queued += top_up(self.study, self.spec)
-        snap = snapshot(self.study, budget_of(self.spec), self.spec.study.workers)
+            queued = top_up(self.study, self.spec)
+            self.queued += queued
+        if queued:  # show the new trials waiting (only then: every read costs the workers)
+            snap = self._show()
+        short = _queue_short(snap, self.spec.study.workers)
+        self._due = time.monotonic() + (QUICK_STEP_SECONDS if short else STEP_SECONDS)
+        return snap
+
+    def _show(self) -> Snapshot:
+        snap = snapshot(self.view, budget_of(self.spec), self.spec.study.workers)
         self.display.update(snap)
-        pause = QUICK_STEP_SECONDS if _queue_short(snap, self.spec.study.workers) else STEP_SECONDS
-        self._due = time.monotonic() + pause
         return snap
 
     def step_when_due(self) -> None:
@@ -87,6 +114,8 @@ class Coordinator:
 
     def close(self) -> None:
         lease.release(engine_of(self.study), self.study.study_name, self.holder)
+        if self.view is not self.study:
+            engine_of(self.view).dispose()
 
     def _check_failures(self) -> None:
         limit = self.spec.study.max_failures

@@ -5,18 +5,21 @@ from __future__ import annotations
 import os
 import socket
 import threading
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import optuna
+from optuna.trial import TrialState
 
 from sweeper.errors import Interrupted, RunFailure, TooManyFailures
 from sweeper.seeds import derive_seed
 from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
-from sweeper.store.attrs import StoredBaseline, StudyInfo, set_stop_request
+from sweeper.store.attrs import StoredBaseline, StudyInfo, TrialInfo, set_stop_request
 from sweeper.store.connect import open_storage, redact, storage_url
 from sweeper.sweep.cluster import run_on_cluster
 from sweeper.sweep.coordinator import Coordinator
+from sweeper.sweep.cores import usable_cores
 from sweeper.sweep.pool import LocalPool, local_pool
 from sweeper.sweep.progress import ProgressDisplay, Snapshot, snapshot
 from sweeper.sweep.study import (
@@ -125,17 +128,58 @@ def queue_only(spec: Spec) -> SweepResult:
     return SweepResult(study.study_name, spec.storage_location, snap, coordinator.queued)
 
 
-def join_sweep(location: str, display: ProgressDisplay | None = None) -> SweepResult:
+def join_sweep(
+    location: str,
+    display: ProgressDisplay | None = None,
+    tell: Callable[[str], None] | None = None,
+) -> SweepResult:
     """Work on an existing study from this host until its budget is met (`sweeper worker`).
 
     Needs no spec file: the spec, telemetry and checkpoints come from the database. A first
     signal stops only this worker; its trial is continued by another worker or on resume.
+    ``tell`` receives one line saying how many torch threads this worker uses, and why.
     """
     quiet_optuna()
     study, spec = load_existing(location)
     set_stop_request(study, None)  # joining means: work on it again, as resume does
-    threads = spec.training.threads or default_threads(1)
+    threads, why = joiner_threads(study, spec)
+    if tell is not None:
+        tell(f"worker: {threads} torch thread{'s' if threads > 1 else ''} ({why})")
     return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
+
+
+def joiner_threads(study: optuna.Study, spec: Spec) -> tuple[int, str]:
+    """A joining worker's torch threads: the spec's, or the cores that this host's other
+    sweeper workers on the study leave free (at least one); and the reason in words."""
+    if spec.training.threads:
+        return spec.training.threads, "training.threads in the spec"
+    busy, cores = busy_threads_here(study), usable_cores()
+    if not busy:
+        return default_threads(1), f"all {cores} cores of this host"
+    return default_threads(1, busy), f"{busy} of {cores} cores here train other workers' trials"
+
+
+def busy_threads_here(study: optuna.Study) -> int:
+    """Torch threads of the study's running trials whose workers live on this host."""
+    host = socket.gethostname()
+    busy = 0
+    for trial in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        info = TrialInfo.of(trial)
+        worker_host, _, rest = info.worker.rpartition(":")[0].rpartition(":")
+        pid = rest if rest.isdigit() else ""
+        if worker_host == host and pid and _process_alive(int(pid)):
+            busy += info.threads or 1  # threads are recorded once the trial trains
+    return busy
+
+
+def _process_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)  # signal 0: only asks whether the process exists
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # another user's process
+        return True
+    return True
 
 
 def _drive(
@@ -218,7 +262,7 @@ def _watch(
     thread = _start_workers(spec, placement, stop, finished, errors)
     try:
         while not finished.wait(WATCH_SECONDS):
-            if stop_requested(coordinator.study) is not None:
+            if stop_requested(coordinator.view) is not None:  # a read: never waits to write
                 stop.set()  # relayed to the in-process worker (set here or by another host)
             if stop.is_set():
                 _stop_workers(coordinator, finished, placement.joined)

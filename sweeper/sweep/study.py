@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import warnings
@@ -16,7 +17,7 @@ from optuna.trial import FrozenTrial, TrialState
 from sweeper.errors import SpecChanged, StudyNotFound
 from sweeper.seeds import sampler_seed
 from sweeper.spec.loading import parse_spec
-from sweeper.spec.sections import MUTABLE_KEYS, Spec, budget_of
+from sweeper.spec.sections import MUTABLE_KEYS, Spec, budget_of, spec_from_text
 from sweeper.spec.space import grid_points
 from sweeper.store import tables
 from sweeper.store.attrs import (
@@ -96,20 +97,49 @@ def _rule_pruner(spec: Spec) -> optuna.pruners.BasePruner | None:
 def launch_attrs(
     spec: Spec, baseline: StoredBaseline | None, task: str, description: str, metric_name: str
 ) -> StudyLaunch:
-    """What a launch of ``spec`` stores in its study."""
+    """What a launch of ``spec`` stores in its study: the spec as its file has it, so that a
+    command-line override holds only for the launch that names it. ``create_or_continue``
+    settles the budget once it sees the study."""
+    in_file = as_in_file(spec)
     return StudyLaunch(
         spec_text=spec.text,
         spec_source=str(Path(spec.source).resolve()) if spec.source else "",
         spec_hash=spec.digest(),
-        spec_data=spec.canonical(),
+        spec_data=in_file.canonical(),
         task=task,
         task_description=description,
         baseline=baseline,
         objective="value" if spec.is_objective_plugin else spec.study.objective,
         metric_name=metric_name,
         budget=spec.study.trials,
-        workers=spec.study.workers,
+        workers=in_file.study.workers,
     )
+
+
+def as_in_file(spec: Spec) -> Spec:
+    """``spec`` without its command-line overrides (the values of its text)."""
+    if not spec.overrides:
+        return spec
+    return spec_from_text(spec.text, spec.source)
+
+
+def launch_budget(study: optuna.Study, spec: Spec) -> int:
+    """The budget a launch stores: the stored one, unless this launch names another (with
+    --trials, or by an edited ``study.trials`` in the file) that adds trials to the study.
+
+    A launch that adds no trials leaves the stored budget alone, so an earlier --trials
+    holds until another one raises it.
+    """
+    info = StudyInfo.of(study)
+    if info.budget is None:  # a new study
+        return spec.study.trials
+    stored_trials = info.spec_data.get("study", {}).get("trials")
+    edited = stored_trials != as_in_file(spec).study.trials
+    if "trials" not in spec.overrides and not edited:
+        return info.budget
+    now = tally(study.get_trials(deepcopy=False))
+    adds = budget_of(spec) > now.finished + now.running + now.waiting
+    return spec.study.trials if adds else info.budget
 
 
 def changed_keys(old: dict[str, Any], new: dict[str, Any], prefix: str = "") -> list[str]:
@@ -138,7 +168,7 @@ def create_or_continue(
     if spec.study.name in names or "spec_hash" in study.user_attrs:  # or made just now
         _refuse_changed_spec(study, spec)
     tables.ensure_tables(storage.engine)
-    write_launch(study, launch)
+    write_launch(study, dataclasses.replace(launch, budget=launch_budget(study, spec)))
     set_stop_request(study, None)
     return study
 
@@ -177,9 +207,11 @@ def load_existing(
     if info.spec_text is None:
         raise StudyNotFound(f"{redact(location)}: '{study_name}' was not made by sweeper")
     spec = parse_spec(info.spec_text, info.spec_source or "<stored spec>")
-    # the budget and worker count of the latest launch, which may differ from the file's
-    spec = spec.with_overrides(trials=info.budget, workers=info.workers, storage=location)
-    return study, spec
+    # the stored budget and worker count, which may differ from the stored text's; they are
+    # the study's own settings, not a command line's
+    spec = spec.with_overrides(trials=info.budget, workers=info.workers)
+    spec = dataclasses.replace(spec, overrides=frozenset())
+    return study, spec.with_overrides(storage=location)
 
 
 @dataclass(frozen=True)
@@ -292,7 +324,9 @@ def top_up(study: optuna.Study, spec: Spec) -> int:
     failure is replaced. Under a compute budget at most one trial per worker waits or runs, so
     each launch decision uses the latest cost estimate. Returns the number queued.
     """
-    requeue_interrupted(study)
+    before = tally(study.get_trials(deepcopy=False))
+    # continuations count against the budget too: never queue one beyond it
+    requeue_interrupted(study, budget_of(spec) - before.finished - before.running - before.waiting)
     trials = study.get_trials(deepcopy=False)
     now = tally(trials)
     need = budget_of(spec) - now.finished - now.running - now.waiting
@@ -337,8 +371,9 @@ def stop_requested(study: optuna.Study) -> str | None:
     return StudyInfo.of(study).stop_request
 
 
-def requeue_interrupted(study: optuna.Study) -> int:
-    """Queue again, with the same parameters, every trial a stop interrupted.
+def requeue_interrupted(study: optuna.Study, limit: int | None = None) -> int:
+    """Queue again, with the same parameters, every trial a stop interrupted (at most
+    ``limit`` of them, oldest first).
 
     The new trial records which trial it continues in the same system attributes optuna's
     heartbeat retry uses, so it loads that trial's checkpoint. Each continuation lengthens
@@ -348,6 +383,8 @@ def requeue_interrupted(study: optuna.Study) -> int:
     continued = {number for t in trials for number in TrialInfo.of(t).retry_history}
     queued = 0
     for trial in trials:
+        if limit is not None and queued >= limit:
+            break
         info = TrialInfo.of(trial)
         if trial.state != TrialState.FAIL or not info.interrupted or trial.number in continued:
             continue

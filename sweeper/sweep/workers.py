@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import os
 import signal
 import threading
 import time
@@ -35,6 +34,7 @@ from sweeper.store.optuna_internals import (
     set_heartbeat,
     trial_id,
 )
+from sweeper.sweep.cores import share_of_cores
 from sweeper.sweep.pool import LocalPool, collector_paused
 from sweeper.sweep.runner import (
     TrialContext,
@@ -61,9 +61,9 @@ STOP_POLL_SECONDS = 1.0
 MAX_POOL_RESTARTS = 5
 
 
-def default_threads(workers: int) -> int:
-    """torch threads per worker: the cores shared out, at least one."""
-    return max(1, (os.cpu_count() or 1) // max(1, workers))
+def default_threads(workers: int, busy: int = 0) -> int:
+    """torch threads per worker: the cores not ``busy`` with other workers, shared out."""
+    return share_of_cores(workers, busy)
 
 
 @dataclass(frozen=True)
