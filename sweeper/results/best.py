@@ -214,8 +214,8 @@ def write_fixed_spec(study: optuna.Study, spec: Spec, path: Path) -> Path:
     except SpecError as error:
         beside = Path(spec.source).parent
         raise InputError(
-            f"{path}: the fixed spec would not check there ({error}); "
-            f"write it beside the study's spec, in {beside}/"
+            f"{path}: {error.key}: {error.message} there; "
+            f"write the fixed spec beside the study's spec, in {beside}/"
         ) from None
     path.parent.mkdir(parents=True, exist_ok=True)
     path.write_text(text, encoding="utf-8")
