@@ -124,9 +124,9 @@ def _seed_lines(study: optuna.Study, spec: Spec, stored: StoredTrial) -> list[st
         return [f"# its one trial trains with trial {stored.number}'s seed {seed}: the same run"]
     location = redact(spec.storage_location)
     return [
-        f"# its one trial trains with seed {seed} (study seed {spec.study.seed}, trial 0); "
-        f"trial {stored.number} trained with seed {stored.seed}, which "
-        f"sweeper replay {location} {stored.number} uses"
+        f"# its one trial trains with seed {seed} (study seed {spec.study.seed}, trial 0); but",
+        f"# trial {stored.number} trained with seed {stored.seed}, "
+        f"as sweeper replay {location} {stored.number} does",
     ]
 
 
