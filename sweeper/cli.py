@@ -143,12 +143,29 @@ def _warn_if_crowded(spec: Spec) -> None:
 
 @main.command()
 @click.argument("study_location", metavar="STUDY")
-def worker(study_location: str) -> None:
-    """Join a study from this host and work until its budget is met."""
+@click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Summary path.")
+def worker(study_location: str, report_path: str | None) -> None:
+    """Join a study from this host and work until its budget is met.
+
+    The worker that finds no trial running or waiting at its end writes the summary, as
+    `sweeper run` does; the others say how to write it once the last trial ends.
+    """
+    from sweeper.store.connect import redact
     from sweeper.sweep.launcher import join_sweep
 
     result = join_sweep(study_location, tell=lambda line: click.echo(line, err=True))
     _final_line(result.snapshot.line())
+    counts = result.snapshot.counts
+    if counts.running or counts.waiting:
+        # A page written now would be stale as soon as the other workers' trials end.
+        where = f" -o {report_path}" if report_path else ""
+        click.echo(
+            f"summary not written: {counts.running} trials running, {counts.waiting} waiting "
+            f"elsewhere; the last worker writes it, or: sweeper report {redact(study_location)}"
+            f"{where}"
+        )
+        return
+    _write_summary(result.location, report_path, result.study_name)
 
 
 def entry() -> None:
@@ -181,15 +198,19 @@ def _finish(result: object, report_path: str | None) -> None:
     if result.best_line:
         click.echo(result.best_line)
     click.echo(f"study: {redact(result.location)}")
-    output = Path(report_path) if report_path else default_report_path(result.location)
+    _write_summary(result.location, report_path, result.study_name)
+
+
+def _write_summary(location: str, report_path: str | None, study_name: str) -> None:
+    output = Path(report_path) if report_path else default_report_path(location)
     try:
         from sweeper.report.render import build_report
     except ImportError:  # the summary is optional until its package is installed
         return
     try:
-        written = build_report(result.location, output, result.study_name)
+        written = build_report(location, output, study_name)
     except KeyboardInterrupt:
-        raise _summary_interrupted(result.location, report_path) from None
+        raise _summary_interrupted(location, report_path) from None
     click.echo(f"summary: {written}")
 
 
@@ -217,14 +238,22 @@ def default_report_path(location: str) -> Path:
 @main.command()
 @click.argument("study_location", metavar="STUDY")
 def status(study_location: str) -> None:
-    """Trials by state, best so far, running trials with epoch and age, ETA."""
-    from sweeper.results.status import status_table
+    """Trials by state, best so far, running trials with epoch and age, ETA.
+
+    Also says when the summary beside the study (where `run` writes it by default) misses
+    trials that finished after it was written; a summary written elsewhere is not looked at.
+    """
+    from sweeper.results.status import stale_summary_line, status_table
     from sweeper.sweep.progress import snapshot
     from sweeper.sweep.study import budget_of, load_existing
 
     study, spec = load_existing(study_location, read_only=True)
     snap = snapshot(study, budget_of(spec), spec.study.workers)
     click.echo(status_table(snap))
+    page = default_report_path(study_location)
+    stale = stale_summary_line(page, study.get_trials(deepcopy=False), study_location)
+    if stale:
+        click.echo(stale)
 
 
 @main.command()
@@ -288,24 +317,45 @@ def replay(study_location: str, trial_number: int) -> None:
 
 @main.command()
 @click.argument("study_location", metavar="STUDY")
+@click.option(
+    "--spec",
+    "spec_path",
+    type=click.Path(dir_okay=False),
+    help="Write the study's spec with its search fixed at the best values to this new file.",
+)
 @click.option("--retrain", is_flag=True, help="Fit the best configuration on train + valid data.")
 @click.option(
     "--save", "save_path", type=click.Path(dir_okay=False), help="Where --retrain saves the model."
 )
-def best(study_location: str, retrain: bool, save_path: str | None) -> None:
-    """Print the best parameters as a spec fragment (TOML).
+def best(study_location: str, spec_path: str | None, retrain: bool, save_path: str | None) -> None:
+    """Print the best parameters as TOML tables to merge into a spec by hand.
 
-    With --retrain --save PATH, train them on the training plus validation data for the
-    epochs the trial ran, score the held-out split and save the model (sweeper.load_model).
+    With --spec PATH, also write the study's whole spec with its search fixed at those
+    values: a one-trial study of its own, ready for `sweeper run PATH`. With --retrain
+    --save PATH, train them on the training plus validation data for the epochs the trial
+    ran, score the held-out split and save the model (sweeper.load_model).
     """
-    from sweeper.results.best import epoch_line, fragment, refit_best, refit_lines, start_line
+    from sweeper.results.best import (
+        ensure_refittable,
+        epoch_line,
+        fragment,
+        refit_best,
+        refit_lines,
+        start_line,
+        write_fixed_spec,
+    )
     from sweeper.results.saved_model import save_model
     from sweeper.sweep.study import load_existing
 
     if retrain != (save_path is not None):
         raise click.UsageError("--retrain and --save PATH go together")
     study, spec = load_existing(study_location, read_only=True)
+    if save_path is not None:
+        ensure_refittable(study, spec)
     click.echo(fragment(study, spec))
+    if spec_path is not None:
+        written = write_fixed_spec(study, spec, Path(spec_path))
+        click.echo(f"# spec with the search fixed: {written} (run it with: sweeper run {written})")
     if save_path is None:
         return
     click.echo(start_line(study, spec))

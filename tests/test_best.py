@@ -14,8 +14,10 @@ import pytest
 import torch
 
 import sweeper
-from sweeper.results.best import refit_best, toml_value
-from sweeper.spec.loading import parse_spec
+from sweeper.results.best import refit_best
+from sweeper.results.fixed_spec import SpecEdit, edited_data, fixed_text, toml_value
+from sweeper.seeds import trial_seed
+from sweeper.spec.loading import load_spec, parse_spec
 from sweeper.store.connect import open_storage
 from sweeper.sweep.study import load_existing
 from sweeper.training.params import TrialParams
@@ -129,11 +131,38 @@ def test_objective_plugin_best_is_a_search_table_of_fixed_values(in_tmp: Path) -
     assert result.exit_code == 0, result.output
     study = optuna.load_study(study_name="bowl", storage=open_storage("runs/bowl.db"))
     assert tomllib.loads(result.output) == {"search": {"x": study.best_trial.params["x"]}}
-    assert invoke("best", "runs/bowl.db", "--retrain", "--save", "m.pt").exit_code == 2
+    # refused before anything is printed: no fragment, no "final fit of trial ..." line
+    refit = invoke("best", "runs/bowl.db", "--retrain", "--save", "m.pt")
+    assert refit.exit_code == 2
+    assert refit.output == (
+        "sweeper: error: study 'bowl' runs an objective plugin (best_bowl:score); "
+        "only trials that sweeper trains can be retrained\n"
+    )
+    # the fixed spec: [search] holds the best value, and it checks where its plugin is found
+    written = invoke("best", "runs/bowl.db", "--spec", "bowl_best.toml")
+    assert written.exit_code == 0, written.output
+    fixed = tomllib.loads((in_tmp / "bowl_best.toml").read_text())
+    assert fixed["search"] == {"x": study.best_trial.params["x"]}
+    assert fixed["study"] == {
+        "name": f"bowl-trial-{study.best_trial.number}",
+        "trials": 1,
+        "workers": 1,
+    }
+    assert invoke("check", "bowl_best.toml").exit_code == 0
+    taken = invoke("best", "runs/bowl.db", "--spec", "bowl_best.toml")
+    assert taken.exit_code == 2 and "already exists" in taken.output
 
 
 def test_retrain_fits_train_plus_valid_and_scores_the_test_tail(in_tmp: Path) -> None:
     tanks(in_tmp)
+    # a fixed spec away from tanks.csv would not find it: refused in one line, nothing written
+    (in_tmp / "elsewhere").mkdir()
+    away = invoke("best", "runs/tanks.db", "--spec", "elsewhere/tanks.toml")
+    assert away.exit_code == 2
+    line = away.output.splitlines()[-1]
+    assert line.startswith("sweeper: error: elsewhere/tanks.toml: task.file: ")
+    assert line.endswith(f"write the fixed spec beside the study's spec, in {in_tmp}/")
+    assert not (in_tmp / "elsewhere" / "tanks.toml").exists()
     study, spec = load_existing("runs/tanks.db")
     refit = refit_best(study, spec)
     assert refit.refit.held_out == "test" and len(refit.run.records) == 4
@@ -261,3 +290,131 @@ def test_a_ragged_classifier_is_saved_and_predicts_at_each_last_step(in_tmp: Pat
     expected = logits.argmax(dim=-1)[torch.arange(len(test)), torch.as_tensor(lengths[test]) - 1]
     assert torch.equal(predicted, expected)
     assert float((predicted.numpy() == labels[test]).mean()) > 0.9
+
+
+COMMENTED = """# a sweep worth keeping
+[study]
+name = "tiny"
+trials = 1
+seed = 3
+sampler = "cmaes"
+
+[task]
+kind = "adding"
+length = 12  # short, so the test is quick
+train_sequences = 64
+valid_sequences = 32
+
+[training]
+epochs = 3
+batch = 32  # small batches
+threads = 1
+
+[search]
+unroll = { between = [3, 12] }
+lr = { between = [0.001, 0.05], scale = "log" }
+
+# every trial runs its epochs
+[stopping]
+rule = "none"
+"""
+
+
+def test_the_fixed_spec_checks_keeps_comments_and_reruns_trial_0_exactly(in_tmp: Path) -> None:
+    (in_tmp / "tiny.toml").write_text(COMMENTED, encoding="utf-8")
+    assert invoke("run", "tiny.toml", "--report", "t.html").exit_code == 0
+    result = invoke("best", "runs/tiny.db", "--spec", "tiny_best.toml")
+    assert result.exit_code == 0, result.output
+    assert result.output.splitlines()[-1] == (
+        "# spec with the search fixed: tiny_best.toml (run it with: sweeper run tiny_best.toml)"
+    )
+    text = (in_tmp / "tiny_best.toml").read_text()
+    for comment in ("# a sweep worth keeping", "# short, so", "# small batches", "# every trial"):
+        assert comment in text
+    assert "its one trial trains with trial 0's seed" in text
+    checked = invoke("check", "tiny_best.toml")
+    assert checked.exit_code == 0, checked.output
+    fixed = tomllib.loads(text)
+    assert "search" not in fixed and fixed["study"]["sampler"] == "random"  # cmaes needs a range
+    ran = invoke("run", "tiny_best.toml", "--report", "b.html")
+    assert ran.exit_code == 0, ran.output
+    old = optuna.load_study(study_name="tiny", storage=open_storage("runs/tiny.db")).best_trial
+    new = optuna.load_study(
+        study_name="tiny-trial-0", storage=open_storage("runs/tiny-trial-0.db")
+    ).trials
+    assert len(new) == 1
+    assert new[0].user_attrs["training"] == old.user_attrs["training"]
+    assert new[0].user_attrs["seed"] == old.user_attrs["seed"]
+    assert new[0].value == old.value  # one machine, one thread: bit for bit
+
+
+def test_a_later_best_trial_gives_its_parameters_and_names_the_seed_that_differs(
+    in_tmp: Path,
+) -> None:
+    spec = write_tiny_spec(in_tmp, trials=3, epochs=2, extra="")
+    spec.write_text(spec.read_text().replace("batch = 32", "batch = 32\nthreads = 1"))
+    assert invoke("run", spec.name, "--report", "t.html").exit_code == 0
+    study, _spec = load_existing("runs/tiny.db")
+    best = study.best_trial
+    assert best.number != 0  # the seeded draws of this spec make a later trial the best
+    assert invoke("best", "runs/tiny.db", "--spec", "best.toml").exit_code == 0
+    fixed = load_spec("best.toml")
+    assert not fixed.search and fixed.training.epochs == 2
+    params = TrialParams.from_mapping(fixed.training.defaults).as_dict()
+    assert params == best.user_attrs["training"]
+    head = Path("best.toml").read_text().splitlines()[:3]
+    zero = trial_seed(3, 0)  # the study seed of write_tiny_spec, trial 0: what a run trains with
+    assert head[1] == f"# its one trial trains with seed {zero} (study seed 3, trial 0); but"
+    assert head[2] == (
+        f"# trial {best.number} trained with seed {best.user_attrs['seed']}, "
+        f"as sweeper replay runs/tiny.db {best.number} does"
+    )
+
+
+def test_a_layout_beyond_a_line_edit_is_written_anew_without_comments() -> None:
+    text = COMMENTED.replace('name = "tiny"', 'name = """\ntiny"""')
+    edit = SpecEdit({"name": "t2", "trials": 1}, ("storage",), {"unroll": 5, "lr": 0.01}, None)
+    written = fixed_text(text, edit, ["# head"])
+    assert tomllib.loads(written) == edited_data(text, edit)
+    assert written.startswith("# head\n") and "# small batches" not in written
+
+
+def test_the_fragment_leaves_out_cell_for_an_own_model(in_tmp: Path) -> None:
+    (in_tmp / "best_own.py").write_text(OWN_MODEL, encoding="utf-8")
+    spec = write_tiny_spec(in_tmp, name="own", trials=1, epochs=1, extra="")
+    text = spec.read_text().replace('kind = "adding"', 'kind = "adding"\nmodel = "best_own:build"')
+    spec.write_text(text.replace("batch = 32", "batch = 32\nthreads = 1"))
+    assert invoke("run", spec.name, "--report", "own.html").exit_code == 0
+    result = invoke("best", "runs/own.db", "--spec", "own_best.toml")
+    assert result.exit_code == 0, result.output
+    assert "cell" not in tomllib.loads(result.output)["training"]
+    assert "cell" not in tomllib.loads((in_tmp / "own_best.toml").read_text())["training"]
+    assert invoke("check", "own_best.toml").exit_code == 0
+
+
+OWN_MODEL = """
+import torch
+from torch import nn
+
+
+class Plain(nn.Module):
+    def __init__(self, input_size, hidden, output_size):
+        super().__init__()
+        self.hidden = hidden
+        self.cell = nn.RNN(input_size, hidden, batch_first=True)
+        self.head = nn.Linear(hidden, output_size)
+
+    def forward(self, x, state):
+        features, state = self.cell(x, state)
+        return self.head(features), state
+
+    def initial_state(self, batch):
+        return torch.zeros(1, batch, self.hidden)
+
+    def detach_state(self, state):
+        return state.detach()
+
+
+def build(params, input_size, output_size):
+    return Plain(input_size, params["hidden"], output_size)
+"""

@@ -8,6 +8,7 @@ import re
 import stat
 from collections.abc import Iterator
 from contextlib import contextmanager
+from datetime import UTC, datetime
 from pathlib import Path
 
 import optuna
@@ -20,6 +21,7 @@ from benchmarks.synthetic_study import make_synthetic_study, synthetic_trial
 from sweeper.report.collect import read_study
 from sweeper.report.escape import script_json
 from sweeper.report.render import build_report, render_page, write_page
+from sweeper.results.summary_stamp import read_stamp
 from sweeper.store.connect import open_storage
 
 SCRIPT = "<script>alert(1)</script>"
@@ -245,3 +247,20 @@ def test_script_json_keeps_the_value_and_hides_markup(text: str) -> None:
     encoded = script_json(json.dumps({"key": text}, ensure_ascii=False))
     assert not {"<", ">", "&", "\u2028", "\u2029"} & set(encoded)
     assert json.loads(encoded) == {"key": text}
+
+
+def test_the_header_says_when_the_page_was_written_and_what_it_covers(tmp_path: Path) -> None:
+    space = {"lr": FloatDistribution(1e-4, 1.0, log=True)}
+    done = synthetic_trial(0, value=0.5, params={"lr": 0.01}, distributions=space, curve=[0.5])
+    running = optuna.trial.create_trial(state=TrialState.RUNNING)
+    location = _study(tmp_path / "two.db", "two", [done, running])
+    before = datetime.now(UTC).replace(microsecond=0)
+    written = build_report(location, tmp_path / "two.html")
+    page = written.read_text(encoding="utf-8")
+    header = page.split("<header", 1)[1].split("</header>", 1)[0]
+    assert re.search(
+        r"Written \d{4}-\d\d-\d\d \d\d:\d\d UTC from 2 trials, 1 of them finished", header
+    )
+    stamp = read_stamp(written)
+    assert stamp is not None and (stamp.trials, stamp.finished) == (2, 1)
+    assert before <= stamp.written <= datetime.now(UTC)

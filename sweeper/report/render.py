@@ -5,7 +5,6 @@ from __future__ import annotations
 import base64
 import hashlib
 import os
-from datetime import datetime
 from importlib import metadata, resources
 from pathlib import Path
 from string import Template
@@ -27,6 +26,7 @@ from sweeper.report.sections_search import (
     response_section,
     timeline_section,
 )
+from sweeper.results.summary_stamp import SummaryStamp, now_utc
 
 CONTENTS = (
     ("outcome", "Outcome"),
@@ -78,6 +78,7 @@ def write_page(page: str, output: Path) -> Path:
 
 def render_page(tables: StudyTables, *, replicates: int = REPLICATES, seed: int = 0) -> str:
     """The whole page as one string."""
+    stamp = summary_stamp(tables)
     book = FigureBook()
     result = param_importance(tables, replicates=replicates, seed=seed)
     sections = [
@@ -98,18 +99,26 @@ def render_page(tables: StudyTables, *, replicates: int = REPLICATES, seed: int 
     return Template(_resource("summary.html")).substitute(
         policy=_policy(page_js, plotly_js),
         version=VERSION,
+        stamp_meta=stamp.meta_tags(),
         title=esc(f"{tables.summary.name} · sweeper summary"),
         css=_resource("summary.css"),
         heading=esc(tables.summary.name),
         subheading=esc(_subheading(tables)),
+        written=esc(stamp.header_line()),
         nav="".join(f'<a href="#{a}">{esc(t)}</a>' for a, t in CONTENTS),
         sections="\n".join(sections),
-        footer=esc(f"Written by sweeper {VERSION} on {datetime.now():%Y-%m-%d %H:%M}."),
+        footer=esc(f"Written by sweeper {VERSION} on {stamp.written.astimezone():%Y-%m-%d %H:%M}."),
         figure_count=str(len(book.figures)),
         figures=figures_json(book),
         page_js=page_js,
         plotly_js=plotly_js,
     )
+
+
+def summary_stamp(tables: StudyTables) -> SummaryStamp:
+    """When the page is written and how many of the study's trials it shows."""
+    finished = sum(trial.finished for trial in tables.trials)
+    return SummaryStamp(now_utc(), len(tables.trials), finished)
 
 
 def figures_json(book: FigureBook) -> str:

@@ -1,22 +1,26 @@
-"""The best trial of a study: its parameters as a spec fragment, and a final fit of them.
+"""The best trial of a study: its parameters as TOML, the spec fixed at them, a final fit.
 
 The fragment is a ``[training]`` table (every training parameter, and the epochs the trial
-ran) that replaces ``[search]`` in a spec; for an objective plugin it is a ``[search]`` table
-of fixed values. The final fit trains the best configuration, with its seed, on the training
-plus validation sequences for the epochs it ran, and scores it on the held-out split.
+ran; for an objective plugin a ``[search]`` table of fixed values) to merge into a spec by
+hand. ``fixed_spec`` is the whole stored spec with its search fixed at those values, a
+one-trial study ready to run. The final fit trains the best configuration, with its seed, on
+the training plus validation sequences for the epochs it ran, and scores it on the held-out
+split.
 """
 
 from __future__ import annotations
 
-import json
+import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import optuna
 from optuna.trial import FrozenTrial
 
-from sweeper.errors import InputError, RunFailure
+from sweeper.errors import InputError, RunFailure, SpecError
+from sweeper.results.fixed_spec import SEARCHLESS_SAMPLERS, SpecEdit, fixed_text, toml_value
 from sweeper.results.stored_trial import (
     StoredTrial,
     stored_trial,
@@ -24,8 +28,11 @@ from sweeper.results.stored_trial import (
     torch_threads,
     training_setup,
 )
+from sweeper.seeds import trial_seed
+from sweeper.spec.loading import parse_spec
 from sweeper.spec.sections import Spec
 from sweeper.store.attrs import StudyInfo, TrialInfo
+from sweeper.store.connect import redact
 from sweeper.tasks.base import Baseline, Task
 from sweeper.tasks.refit import RefitTask
 from sweeper.training.epoch_loop import run_epochs
@@ -43,17 +50,6 @@ def best_trial(study: optuna.Study) -> FrozenTrial:
         ) from None
 
 
-def toml_value(value: Any) -> str:
-    """A TOML literal that reads back as ``value`` (floats by repr, so exactly)."""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, float):
-        return repr(value)  # inf and nan are TOML too
-    return json.dumps(str(value), ensure_ascii=False)
-
-
 def fragment(study: optuna.Study, spec: Spec) -> str:
     """The best parameters as TOML, headed by a comment that says where they come from."""
     trial = best_trial(study)
@@ -66,8 +62,72 @@ def fragment(study: optuna.Study, spec: Spec) -> str:
     if spec.is_objective_plugin:
         return _table(head, "search", trial.params)
     stored = stored_trial(study, spec, trial)
-    values = {"epochs": _epochs(trial, spec), **stored.params.as_dict()}
+    values = {"epochs": _epochs(trial, spec), **_training_values(spec, stored)}
     return _table(f"{head}, seed {stored.seed}", "training", values)
+
+
+def _training_values(spec: Spec, stored: StoredTrial) -> dict[str, Any]:
+    """The trial's training parameters; ``cell`` only where sweeper builds the network."""
+    values = stored.params.as_dict()
+    if spec.task.model is not None:  # the spec's own model function builds the network
+        values.pop("cell", None)
+    return values
+
+
+def ensure_refittable(study: optuna.Study, spec: Spec) -> None:
+    """Refuse up front, before anything is printed, a study whose best trial cannot be
+    trained again (an objective plugin, or a trial that recorded no training)."""
+    stored_trial(study, spec, best_trial(study))
+
+
+def fixed_spec(study: optuna.Study, spec: Spec) -> str:
+    """The stored spec's text with the search fixed at the best trial's values.
+
+    The new study is named after the trial and runs one trial in a database of its own
+    (beside the old one, never inside it). Its trial 0 trains with the seed derived from
+    the study seed for trial 0, which is the best trial's own seed only when that was trial
+    0; the head says so, and how to train with the very seed.
+    """
+    trial = best_trial(study)
+    name = f"{study.study_name}-trial-{trial.number}"
+    settings: dict[str, Any] = {"name": name, "trials": 1, "workers": 1}
+    if spec.study.sampler in SEARCHLESS_SAMPLERS:
+        settings["sampler"] = SEARCHLESS_SAMPLERS[spec.study.sampler]
+    head = [
+        f"# trial {trial.number} of '{study.study_name}' ({_value_text(study, trial)}), "
+        "its search fixed by sweeper best --spec"
+    ]
+    if spec.is_objective_plugin:
+        search = {key: trial.params.get(key, value) for key, value in _stored_search(spec).items()}
+        edit = SpecEdit(settings, ("storage",), {}, search)
+        return fixed_text(spec.text, edit, head)
+    stored = stored_trial(study, spec, trial)
+    values = _training_values(spec, stored)
+    training = {"epochs": _epochs(trial, spec), "threads": sweep_threads(spec)}
+    training.update({key: values[key] for key in spec.search if key in values})
+    edit = SpecEdit(settings, ("storage",), training, None)
+    return fixed_text(spec.text, edit, head + _seed_lines(study, spec, stored))
+
+
+def _value_text(study: optuna.Study, trial: FrozenTrial) -> str:
+    return f"{StudyInfo.of(study).objective} {trial.value!r}"
+
+
+def _stored_search(spec: Spec) -> dict[str, Any]:
+    return dict(tomllib.loads(spec.text).get("search", {}))
+
+
+def _seed_lines(study: optuna.Study, spec: Spec, stored: StoredTrial) -> list[str]:
+    """Which seed the written spec's one trial trains with, against the best trial's."""
+    seed = trial_seed(spec.study.seed, 0)
+    if seed == stored.seed:
+        return [f"# its one trial trains with trial {stored.number}'s seed {seed}: the same run"]
+    location = redact(spec.storage_location)
+    return [
+        f"# its one trial trains with seed {seed} (study seed {spec.study.seed}, trial 0); but",
+        f"# trial {stored.number} trained with seed {stored.seed}, "
+        f"as sweeper replay {location} {stored.number} does",
+    ]
 
 
 def _table(head: str, name: str, values: Mapping[str, Any]) -> str:
@@ -142,3 +202,21 @@ def epoch_line(record: EpochRecord) -> str:
         f"# epoch {record.epoch}: train loss {record.train_loss:.6g}, "
         f"held-out loss {record.valid_loss:.6g}, metric {record.valid_metric:.6g}"
     )
+
+
+def write_fixed_spec(study: optuna.Study, spec: Spec, path: Path) -> Path:
+    """Write ``fixed_spec`` to a new file at ``path``, once it checks from there."""
+    if path.exists():
+        raise InputError(f"{path}: already exists; give --spec a new file name")
+    text = fixed_spec(study, spec)
+    try:  # relative paths (data files, model modules) are read beside the spec
+        parse_spec(text, str(path))
+    except SpecError as error:
+        beside = Path(spec.source).parent
+        raise InputError(
+            f"{path}: {error.key}: {error.message} there; "
+            f"write the fixed spec beside the study's spec, in {beside}/"
+        ) from None
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(text, encoding="utf-8")
+    return path

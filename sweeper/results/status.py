@@ -3,10 +3,14 @@
 from __future__ import annotations
 
 import io
+from pathlib import Path
 
+from optuna.trial import FrozenTrial
 from rich.console import Console
 from rich.table import Table
 
+from sweeper.results.summary_stamp import read_stamp
+from sweeper.store.connect import redact
 from sweeper.sweep.progress import Snapshot, format_seconds
 
 
@@ -61,3 +65,17 @@ def status_table(snap: Snapshot) -> str:
             retries.add_row(str(number), str(original))
         console.print(retries)
     return buffer.getvalue().rstrip()
+
+
+def stale_summary_line(page: Path, trials: list[FrozenTrial], location: str) -> str | None:
+    """A line when the summary at ``page`` misses trials that have finished since it was
+    written; None when it is current, absent, or not stamped by sweeper."""
+    stamp = read_stamp(page)
+    finished = sum(trial.state.is_finished() for trial in trials)
+    if stamp is None or stamp.finished >= finished:
+        return None
+    return (
+        f"summary at {page} shows {stamp.finished} of the {finished} finished trials "
+        f"(written {stamp.written:%Y-%m-%d %H:%M} UTC); "
+        f"refresh with: sweeper report {redact(location)}"
+    )
