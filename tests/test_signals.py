@@ -5,16 +5,20 @@ from __future__ import annotations
 import os
 import signal
 import time
+from datetime import datetime
 from pathlib import Path
 
 import pytest
+from optuna.trial import TrialState
+
+from sweeper.store.attrs import TrialInfo
 
 from tests import processes as proc
 
 SPEC = """
 [study]
 name = "s"
-trials = 12
+trials = 24
 workers = {workers}
 seed = 5
 heartbeat = 10  # stale only after 20 s: the checks below come well before
@@ -67,3 +71,40 @@ def test_sigterm_to_the_process_group_marks_every_claimed_trial(tmp_path: Path) 
         assert not [row for row in rows if row[1] == "RUNNING"], rows
         left = [row for row in rows if row[1] == "FAIL"]
         assert left and all(marked for _n, _s, marked in left), rows
+
+
+def _running_workers(db: Path, after: datetime | None = None) -> set[str]:
+    """The worker names (host:pid:wN) of the trials running now, started after ``after``."""
+    if not db.exists() or proc.epoch_count(db) == 0:  # no study to open yet
+        return set()
+    return {
+        TrialInfo.of(t).worker or ""
+        for t in proc.trials(db, "s")
+        if t.state == TrialState.RUNNING
+        and (after is None or (t.datetime_start is not None and t.datetime_start > after))
+    } - {""}
+
+
+def _alive(worker: str) -> bool:
+    return Path(f"/proc/{worker.split(':')[1]}").exists()
+
+
+@pytest.mark.slow  # about 30 s: a pool start and a few dozen short trials
+def test_a_worker_signalled_alone_is_replaced(tmp_path: Path) -> None:
+    spec = _spec(tmp_path, workers=2)
+    db = tmp_path / "runs" / "s.db"
+    launcher = proc.start(tmp_path, "run", spec.name, new_group=True)
+    try:
+        proc.wait_for(lambda: len(_running_workers(db)) == 2, 120, "two running workers")
+        victim = sorted(_running_workers(db))[0]
+        signalled = datetime.now()
+        os.kill(int(victim.split(":")[1]), signal.SIGTERM)
+
+        def two_again() -> bool:
+            later = _running_workers(db, after=signalled)
+            return len(later) == 2 and all(_alive(worker) for worker in later)
+
+        proc.wait_for(two_again, 30, "two workers running trials started after the signal")
+    finally:
+        os.killpg(launcher.pid, signal.SIGTERM)
+        launcher.wait(timeout=30)

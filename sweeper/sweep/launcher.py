@@ -198,7 +198,8 @@ def _start_workers(
             errors,
         )
     if placement.pool is not None:
-        return run_parallel(location, name, placement.pool, placement.threads, finished.set, errors)
+        pool, threads = placement.pool, placement.threads
+        return run_parallel(location, name, pool, threads, finished.set, errors, stop)
     index = derive_seed(socket.gethostname(), os.getpid()) % 10_000 if placement.joined else 0
 
     # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.

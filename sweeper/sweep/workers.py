@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 import signal
@@ -70,6 +71,7 @@ def default_threads(workers: int) -> int:
 class WorkerSummary:
     worker: str
     trials: int
+    signalled: bool = False  # stopped by a signal to its own process, not by the study
 
 
 def load_trial_machinery() -> None:
@@ -189,7 +191,8 @@ def _work(
         done += 1
         idle_since = time.monotonic()
     done_event.set()  # ends the watcher thread
-    return WorkerSummary(context.worker, done)
+    signalled = stop_event.is_set() and stop_requested(study) is None
+    return WorkerSummary(context.worker, done, signalled)
 
 
 def _give_back_if_surplus(study: optuna.Study, spec: Spec, claimed: int) -> bool:
@@ -299,12 +302,17 @@ def run_parallel(
     threads: int,
     on_done: Callable[[], None],
     errors: list[BaseException],
+    stop: threading.Event,
 ) -> threading.Thread:
-    """Run one worker on each of the pool's processes, from a helper thread."""
+    """Run one worker on each of the pool's processes, from a helper thread.
+
+    ``stop``: the launcher's own stop; once set, no worker that ends is replaced (a signal
+    to the whole process group reaches the workers before the stop request is stored).
+    """
 
     def until_done() -> None:
         try:
-            _parallel_until_done(pool, location, study_name, threads)
+            _parallel_until_done(pool, location, study_name, threads, stop)
         finally:
             pool.close()  # the summary can be written while they go away
 
@@ -332,27 +340,45 @@ def in_background(
     return thread
 
 
-def _parallel_until_done(pool: LocalPool, location: str, study_name: str, threads: int) -> None:
+def _parallel_until_done(
+    pool: LocalPool, location: str, study_name: str, threads: int, stop: threading.Event
+) -> None:
     """Run the workers; when one dies (killed, out of memory), start the pool again.
 
     joblib's process pool stops every worker when one of them dies; their trials then look
-    stale and come back, from their checkpoints, through the heartbeat retry.
+    stale and come back, from their checkpoints, through the heartbeat retry. A worker that
+    stopped because its own process alone was signalled is replaced, so that the sweep keeps
+    its parallelism; a study-wide stop request replaces none.
     """
-    import joblib
     from joblib.externals.loky.process_executor import TerminatedWorkerError
 
+    call = functools.partial(_pool_work, location, study_name, threads)
     for restart in range(MAX_POOL_RESTARTS + 1):
         try:
-            pool.run(
-                joblib.delayed(work)(location, study_name, index, threads, None, True)
-                for index in range(pool.size)
-            )
+            pool.run_each(call, functools.partial(_replace, location, study_name, stop))
             return
         except TerminatedWorkerError:
             if restart == MAX_POOL_RESTARTS:
                 raise
-            study, spec = load_existing(location, study_name)
-            if stop_requested(study) is not None:
+            if not _still_to_run(location, study_name):
                 return
-            if tally(study.get_trials(deepcopy=False)).finished >= budget_of(spec):
-                return
+
+
+def _pool_work(location: str, study_name: str, threads: int, index: int) -> WorkerSummary:
+    """One pool worker: its own signals stop it, and it watches the study for stop requests."""
+    return work(location, study_name, index, threads, None, True)
+
+
+def _replace(
+    location: str, study_name: str, stop: threading.Event, summary: WorkerSummary
+) -> bool:
+    """Whether a pool worker that has ended needs a replacement."""
+    return summary.signalled and not stop.is_set() and _still_to_run(location, study_name)
+
+
+def _still_to_run(location: str, study_name: str) -> bool:
+    """No stop is requested and the budget is not met yet."""
+    study, spec = load_existing(location, study_name)
+    if stop_requested(study) is not None:
+        return False
+    return tally(study.get_trials(deepcopy=False)).finished < budget_of(spec)
