@@ -12,7 +12,6 @@ import pytest
 from optuna.trial import TrialState
 
 from sweeper.store.attrs import TrialInfo
-
 from tests import processes as proc
 
 SPEC = """
@@ -62,7 +61,7 @@ def test_sigterm_to_the_process_group_marks_every_claimed_trial(tmp_path: Path) 
         spec = _spec(folder, workers=2)
         db = folder / "runs" / "s.db"
         launcher = proc.start(folder, "run", spec.name, new_group=True)
-        proc.wait_for(lambda: proc.epoch_count(db) >= 1, 120, "a first epoch")
+        proc.wait_for(lambda db=db: proc.epoch_count(db) >= 1, 120, "a first epoch")
         sent = time.monotonic()
         os.killpg(launcher.pid, signal.SIGTERM)
         assert launcher.wait(timeout=30) == 130

@@ -15,6 +15,7 @@ from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
 from sweeper.store.attrs import StoredBaseline, StudyInfo, set_stop_request
 from sweeper.store.connect import open_storage, redact, storage_url
+from sweeper.store.faults import disk_full_of_study
 from sweeper.sweep.cluster import run_on_cluster
 from sweeper.sweep.coordinator import Coordinator
 from sweeper.sweep.pool import LocalPool, local_pool
@@ -97,10 +98,11 @@ def run_sweep(
     ``pool``: local worker processes the caller started earlier and closes
     (``sweeper.sweep.pool.local_pool``); when none is given, this makes and closes its own.
     """
-    if pool is not None or cluster:
-        return _run(spec, display, cluster, pool)
-    with local_pool(spec.study.workers) as own:
-        return _run(spec, display, cluster, own)
+    with disk_full_of_study(spec.storage_location):
+        if pool is not None or cluster:
+            return _run(spec, display, cluster, pool)
+        with local_pool(spec.study.workers) as own:
+            return _run(spec, display, cluster, own)
 
 
 def _run(
@@ -135,7 +137,8 @@ def join_sweep(location: str, display: ProgressDisplay | None = None) -> SweepRe
     study, spec = load_existing(location)
     set_stop_request(study, None)  # joining means: work on it again, as resume does
     threads = spec.training.threads or default_threads(1)
-    return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
+    with disk_full_of_study(location):
+        return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
 
 
 def _drive(

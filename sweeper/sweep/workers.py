@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import math
 import os
@@ -27,6 +28,7 @@ from sweeper.store.attrs import (
     record_wall_seconds,
 )
 from sweeper.store.connect import engine_of, redact, retry_locked
+from sweeper.store.faults import disk_full_of_study, is_disk_full
 from sweeper.store.heartbeat import HeartbeatTiming
 from sweeper.store.optuna_internals import (
     claim_waiting_trial,
@@ -51,6 +53,7 @@ from sweeper.sweep.study import (
     make_pruner,
     make_sampler,
     quiet_optuna,
+    request_stop,
     stop_requested,
     tally,
 )
@@ -111,7 +114,8 @@ def work(
     restore = install_stop_signals(stop_event) if own_signals else None
     try:
         watch = own_signals if watch_requests is None else watch_requests
-        return _work(location, study_name, worker_index, stop_event, watch)
+        with disk_full_of_study(location):  # one line, and a plain error to send back
+            return _work(location, study_name, worker_index, stop_event, watch)
     finally:
         torch.set_num_threads(previous)
         if restore is not None:
@@ -169,6 +173,28 @@ def _work(
     done_event = threading.Event()
     if watch_requests:  # in the launcher's process, its coordinator relays stop requests
         _watch_stop_requests(study, stop_event, done_event)
+    try:
+        done = _claim_and_run(study, spec, context, stop_event)
+    except Exception as error:
+        if is_disk_full(error):  # every worker stops; nothing here is a trial's fault
+            _request_stop_if_possible(study, "disk full")
+        raise
+    finally:
+        done_event.set()  # ends the watcher thread
+    signalled = stop_event.is_set() and stop_requested(study) is None
+    return WorkerSummary(context.worker, done, signalled)
+
+
+def _request_stop_if_possible(study: optuna.Study, reason: str) -> None:
+    """Store a stop request for every worker, unless the storage cannot take even that."""
+    with contextlib.suppress(Exception):  # the launcher stops the local workers anyway
+        request_stop(study, reason)
+
+
+def _claim_and_run(
+    study: optuna.Study, spec: Spec, context: TrialContext, stop_event: threading.Event
+) -> int:
+    """Claim and run trials until the budget is met or a stop; the number run."""
     done = 0
     idle_since = time.monotonic()
     while not stop_event.is_set() and stop_requested(study) is None:
@@ -190,9 +216,7 @@ def _work(
         run_claimed(study, claimed, context)
         done += 1
         idle_since = time.monotonic()
-    done_event.set()  # ends the watcher thread
-    signalled = stop_event.is_set() and stop_requested(study) is None
-    return WorkerSummary(context.worker, done, signalled)
+    return done
 
 
 def _give_back_if_surplus(study: optuna.Study, spec: Spec, claimed: int) -> bool:
@@ -245,6 +269,8 @@ def run_claimed(study: optuna.Study, claimed: int, context: TrialContext) -> Tri
             state, interrupted = TrialState.FAIL, True
             record_interrupted(trial, stop.epoch)
         except Exception as error:  # user code failed: record it, keep the study going
+            if is_disk_full(error):  # the storage's fault, not the trial's: nothing to learn
+                raise
             state = TrialState.FAIL
             record_failure(trial, _redacted_failure(error))
     record_wall_seconds(trial, time.perf_counter() - started)
@@ -369,9 +395,7 @@ def _pool_work(location: str, study_name: str, threads: int, index: int) -> Work
     return work(location, study_name, index, threads, None, True)
 
 
-def _replace(
-    location: str, study_name: str, stop: threading.Event, summary: WorkerSummary
-) -> bool:
+def _replace(location: str, study_name: str, stop: threading.Event, summary: WorkerSummary) -> bool:
     """Whether a pool worker that has ended needs a replacement."""
     return summary.signalled and not stop.is_set() and _still_to_run(location, study_name)
 
