@@ -18,7 +18,7 @@ from tests import processes as proc
 SPEC = """
 [study]
 name = "f"
-trials = 30
+trials = 12
 workers = 1
 seed = 3
 storage = "f.db"
@@ -75,6 +75,7 @@ def _one_error_line(stderr: str) -> str:
     return errors[0]
 
 
+@pytest.mark.slow  # two sweeps on a tmpfs, about a minute
 def test_full_disk_stops_the_sweep_in_one_line_and_resume_completes(small_disk: Path) -> None:
     (small_disk / "f.toml").write_text(SPEC)
     filler = _fill(small_disk, leave=1200 * 1024)  # room for the study and a trial or two
@@ -92,11 +93,12 @@ def test_full_disk_stops_the_sweep_in_one_line_and_resume_completes(small_disk: 
     resumed = proc.run(small_disk, "resume", "f.db", timeout=180)
     assert resumed.returncode == 0, resumed.stderr
     done = [t for t in proc.trials(db, "f") if t.state == TrialState.COMPLETE]
-    assert len(done) == 30
+    assert len(done) == 12
 
 
+@pytest.mark.slow  # a sweep and a report, about 25 s
 def test_report_onto_a_full_disk_is_one_line(tmp_path: Path, small_disk: Path) -> None:
-    (tmp_path / "f.toml").write_text(SPEC.replace("trials = 30", "trials = 2"))
+    (tmp_path / "f.toml").write_text(SPEC.replace("trials = 12", "trials = 2"))
     assert proc.run(tmp_path, "run", "f.toml").returncode == 0
     _fill(small_disk, leave=0)
     page = small_disk / "page.html"
