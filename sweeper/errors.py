@@ -8,6 +8,7 @@ SweeperError                 base; the command line maps each branch to an exit 
  +-- RunFailure              exit 1: the work started but could not finish
       +-- TooManyFailures    consecutive trial failures reached the spec's limit
       +-- StorageFailure     the study database could not be opened or written
+           +-- DiskFull      no space left where the study or a page is written
  +-- Interrupted             exit 130: the user or the scheduler asked us to stop
 """
 
@@ -58,6 +59,13 @@ class TooManyFailures(RunFailure):
 
 class StorageFailure(RunFailure):
     """The study database could not be opened or written."""
+
+
+class DiskFull(StorageFailure):
+    """No space left on the disk under the study database or an output file.
+
+    ``str()`` names the path and what to do: ``disk full at PATH; free space, then: ...``.
+    """
 
 
 class Interrupted(SweeperError):

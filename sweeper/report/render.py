@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import base64
+import errno
 import hashlib
 import os
 from importlib import metadata, resources
@@ -27,6 +28,7 @@ from sweeper.report.sections_search import (
     timeline_section,
 )
 from sweeper.results.summary_stamp import SummaryStamp, now_utc
+from sweeper.store.faults import page_disk_full
 
 CONTENTS = (
     ("outcome", "Outcome"),
@@ -64,14 +66,21 @@ def build_report(location: str, output: Path, study_name: str | None = None) -> 
 
 
 def write_page(page: str, output: Path) -> Path:
-    """Write atomically, so that a reader never sees half a page."""
-    handle, temporary = create_beside(output, ".part")
+    """Write atomically, so that a reader never sees half a page; a full disk in one line."""
+    try:
+        handle, temporary = create_beside(output, ".part")
+    except OSError as error:
+        if error.errno == errno.ENOSPC:
+            raise page_disk_full(output) from None
+        raise
     try:
         with os.fdopen(handle, "w", encoding="utf-8") as stream:
             stream.write(page)
         os.replace(temporary, output)
-    except BaseException:
+    except BaseException as error:
         temporary.unlink(missing_ok=True)
+        if isinstance(error, OSError) and error.errno == errno.ENOSPC:
+            raise page_disk_full(output) from None
         raise
     return output
 

@@ -17,6 +17,7 @@ from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
 from sweeper.store.attrs import StoredBaseline, StudyInfo, TrialInfo, set_stop_request
 from sweeper.store.connect import open_storage, redact, storage_url
+from sweeper.store.faults import disk_full_of_study
 from sweeper.sweep.cluster import run_on_cluster
 from sweeper.sweep.coordinator import Coordinator
 from sweeper.sweep.cores import usable_cores
@@ -100,10 +101,11 @@ def run_sweep(
     ``pool``: local worker processes the caller started earlier and closes
     (``sweeper.sweep.pool.local_pool``); when none is given, this makes and closes its own.
     """
-    if pool is not None or cluster:
-        return _run(spec, display, cluster, pool)
-    with local_pool(spec.study.workers) as own:
-        return _run(spec, display, cluster, own)
+    with disk_full_of_study(spec.storage_location):
+        if pool is not None or cluster:
+            return _run(spec, display, cluster, pool)
+        with local_pool(spec.study.workers) as own:
+            return _run(spec, display, cluster, own)
 
 
 def _run(
@@ -145,7 +147,8 @@ def join_sweep(
     threads, why = joiner_threads(study, spec)
     if tell is not None:
         tell(f"worker: {threads} torch thread{'s' if threads > 1 else ''} ({why})")
-    return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
+    with disk_full_of_study(location):
+        return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
 
 
 def joiner_threads(study: optuna.Study, spec: Spec) -> tuple[int, str]:
@@ -242,7 +245,8 @@ def _start_workers(
             errors,
         )
     if placement.pool is not None:
-        return run_parallel(location, name, placement.pool, placement.threads, finished.set, errors)
+        pool, threads = placement.pool, placement.threads
+        return run_parallel(location, name, pool, threads, finished.set, errors, stop)
     index = derive_seed(socket.gethostname(), os.getpid()) % 10_000 if placement.joined else 0
 
     # One worker runs in this process (clean tracebacks); the launcher keeps the main thread.

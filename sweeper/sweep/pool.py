@@ -15,7 +15,8 @@ from __future__ import annotations
 import contextlib
 import gc
 import multiprocessing
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import FIRST_COMPLETED, Future, wait
 from typing import Any
 
 PRELOAD_MODULE = "sweeper.sweep.worker_preload"
@@ -82,6 +83,36 @@ class LocalPool:
         finally:
             self._busy = False
             parallel.__exit__(None, None, None)
+
+    def run_each(self, call: Callable[[int], Any], again: Callable[[Any], bool]) -> None:
+        """Run ``call(index)`` once per process index; run an index again each time its result
+        satisfies ``again``, so the pool keeps its size when one call ends early.
+
+        ``call`` must be picklable (a module-level function or a partial of one). What a call
+        raises, a worker process dying included, is raised here.
+        """
+        executor = self._executor()
+        self._busy = True
+        try:
+            running: dict[Future[Any], int] = {
+                executor.submit(call, index): index for index in range(self.size)
+            }
+            while running:
+                done, _ = wait(running, return_when=FIRST_COMPLETED)
+                for future in done:
+                    index = running.pop(future)
+                    if again(future.result()):
+                        running[executor.submit(call, index)] = index
+        finally:
+            self._busy = False
+
+    def _executor(self) -> Any:
+        """joblib's process executor for ``size`` workers, set up as ``run`` sets it up."""
+        import joblib
+
+        with _loky_start_method("forkserver") if FORK_SERVER else contextlib.nullcontext():
+            joblib.Parallel(n_jobs=self.size, backend="loky").__enter__()
+        return _current_executor()
 
     def kill(self) -> None:
         """Kill every worker process now, busy or not (the launcher is leaving at once)."""

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import contextlib
+import functools
 import math
 import signal
 import threading
@@ -25,6 +27,7 @@ from sweeper.store.attrs import (
     record_wall_seconds,
 )
 from sweeper.store.connect import engine_of, redact, retry_locked
+from sweeper.store.faults import disk_full_of_study, is_disk_full
 from sweeper.store.heartbeat import HeartbeatTiming
 from sweeper.store.optuna_internals import (
     claim_waiting_trial,
@@ -50,6 +53,7 @@ from sweeper.sweep.study import (
     make_pruner,
     make_sampler,
     quiet_optuna,
+    request_stop,
     stop_requested,
     tally,
 )
@@ -70,6 +74,7 @@ def default_threads(workers: int, busy: int = 0) -> int:
 class WorkerSummary:
     worker: str
     trials: int
+    signalled: bool = False  # stopped by a signal to its own process, not by the study
 
 
 def load_trial_machinery() -> None:
@@ -109,7 +114,8 @@ def work(
     restore = install_stop_signals(stop_event) if own_signals else None
     try:
         watch = own_signals if watch_requests is None else watch_requests
-        return _work(location, study_name, worker_index, stop_event, watch)
+        with disk_full_of_study(location):  # one line, and a plain error to send back
+            return _work(location, study_name, worker_index, stop_event, watch)
     finally:
         torch.set_num_threads(previous)
         if restore is not None:
@@ -167,6 +173,28 @@ def _work(
     done_event = threading.Event()
     if watch_requests:  # in the launcher's process, its coordinator relays stop requests
         _watch_stop_requests(study, stop_event, done_event)
+    try:
+        done = _claim_and_run(study, spec, context, stop_event)
+    except Exception as error:
+        if is_disk_full(error):  # every worker stops; nothing here is a trial's fault
+            _request_stop_if_possible(study, "disk full")
+        raise
+    finally:
+        done_event.set()  # ends the watcher thread
+    signalled = stop_event.is_set() and stop_requested(study) is None
+    return WorkerSummary(context.worker, done, signalled)
+
+
+def _request_stop_if_possible(study: optuna.Study, reason: str) -> None:
+    """Store a stop request for every worker, unless the storage cannot take even that."""
+    with contextlib.suppress(Exception):  # the launcher stops the local workers anyway
+        request_stop(study, reason)
+
+
+def _claim_and_run(
+    study: optuna.Study, spec: Spec, context: TrialContext, stop_event: threading.Event
+) -> int:
+    """Claim and run trials until the budget is met or a stop; the number run."""
     done = 0
     idle_since = time.monotonic()
     while not stop_event.is_set() and stop_requested(study) is None:
@@ -188,8 +216,7 @@ def _work(
         run_claimed(study, claimed, context)
         done += 1
         idle_since = time.monotonic()
-    done_event.set()  # ends the watcher thread
-    return WorkerSummary(context.worker, done)
+    return done
 
 
 def _give_back_if_surplus(study: optuna.Study, spec: Spec, claimed: int) -> bool:
@@ -242,6 +269,8 @@ def run_claimed(study: optuna.Study, claimed: int, context: TrialContext) -> Tri
             state, interrupted = TrialState.FAIL, True
             record_interrupted(trial, stop.epoch)
         except Exception as error:  # user code failed: record it, keep the study going
+            if is_disk_full(error):  # the storage's fault, not the trial's: nothing to learn
+                raise
             state = TrialState.FAIL
             record_failure(trial, _redacted_failure(error))
     record_wall_seconds(trial, time.perf_counter() - started)
@@ -299,12 +328,17 @@ def run_parallel(
     threads: int,
     on_done: Callable[[], None],
     errors: list[BaseException],
+    stop: threading.Event,
 ) -> threading.Thread:
-    """Run one worker on each of the pool's processes, from a helper thread."""
+    """Run one worker on each of the pool's processes, from a helper thread.
+
+    ``stop``: the launcher's own stop; once set, no worker that ends is replaced (a signal
+    to the whole process group reaches the workers before the stop request is stored).
+    """
 
     def until_done() -> None:
         try:
-            _parallel_until_done(pool, location, study_name, threads)
+            _parallel_until_done(pool, location, study_name, threads, stop)
         finally:
             pool.close()  # the summary can be written while they go away
 
@@ -332,27 +366,43 @@ def in_background(
     return thread
 
 
-def _parallel_until_done(pool: LocalPool, location: str, study_name: str, threads: int) -> None:
+def _parallel_until_done(
+    pool: LocalPool, location: str, study_name: str, threads: int, stop: threading.Event
+) -> None:
     """Run the workers; when one dies (killed, out of memory), start the pool again.
 
     joblib's process pool stops every worker when one of them dies; their trials then look
-    stale and come back, from their checkpoints, through the heartbeat retry.
+    stale and come back, from their checkpoints, through the heartbeat retry. A worker that
+    stopped because its own process alone was signalled is replaced, so that the sweep keeps
+    its parallelism; a study-wide stop request replaces none.
     """
-    import joblib
     from joblib.externals.loky.process_executor import TerminatedWorkerError
 
+    call = functools.partial(_pool_work, location, study_name, threads)
     for restart in range(MAX_POOL_RESTARTS + 1):
         try:
-            pool.run(
-                joblib.delayed(work)(location, study_name, index, threads, None, True)
-                for index in range(pool.size)
-            )
+            pool.run_each(call, functools.partial(_replace, location, study_name, stop))
             return
         except TerminatedWorkerError:
             if restart == MAX_POOL_RESTARTS:
                 raise
-            study, spec = load_existing(location, study_name)
-            if stop_requested(study) is not None:
+            if not _still_to_run(location, study_name):
                 return
-            if tally(study.get_trials(deepcopy=False)).finished >= budget_of(spec):
-                return
+
+
+def _pool_work(location: str, study_name: str, threads: int, index: int) -> WorkerSummary:
+    """One pool worker: its own signals stop it, and it watches the study for stop requests."""
+    return work(location, study_name, index, threads, None, True)
+
+
+def _replace(location: str, study_name: str, stop: threading.Event, summary: WorkerSummary) -> bool:
+    """Whether a pool worker that has ended needs a replacement."""
+    return summary.signalled and not stop.is_set() and _still_to_run(location, study_name)
+
+
+def _still_to_run(location: str, study_name: str) -> bool:
+    """No stop is requested and the budget is not met yet."""
+    study, spec = load_existing(location, study_name)
+    if stop_requested(study) is not None:
+        return False
+    return tally(study.get_trials(deepcopy=False)).finished < budget_of(spec)
