@@ -19,6 +19,7 @@ def _loaded_before_any_trial() -> tuple[int, int, bool, bool]:
     """In a pool process: its pid, its parent's, and whether the trainer and torch's lazily
     loaded parts are in."""
     loaded = "sweeper.training.trial_run" in sys.modules, "torch._dynamo" in sys.modules
+    time.sleep(0.5)  # busy long enough that the other process takes the other call
     return (os.getpid(), os.getppid(), *loaded)
 
 
