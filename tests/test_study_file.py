@@ -53,8 +53,8 @@ def test_a_file_that_is_no_database_is_bad_input(tmp_path: Path, command) -> Non
     _one_error_line(result, "not a sweeper study: cannot read it as a database")
 
 
-def test_a_damaged_study_file_is_named_as_such(tmp_path: Path) -> None:
-    path = tmp_path / "study.db"
+def _damaged_study(path: Path) -> None:
+    """A study file with random-looking bytes over one page in the middle of its trials."""
     storage = optuna.storages.RDBStorage(f"sqlite:///{path}")
     study = optuna.create_study(study_name="s", storage=storage)
     for number in range(300):
@@ -68,6 +68,11 @@ def test_a_damaged_study_file_is_named_as_such(tmp_path: Path) -> None:
     middle = (pages // 2) * page
     data[middle : middle + page] = hashlib.sha256(b"x").digest() * (page // 32)
     path.write_bytes(bytes(data))
+
+
+def test_a_damaged_study_file_is_named_as_such(tmp_path: Path) -> None:
+    path = tmp_path / "study.db"
+    _damaged_study(path)
     result = invoke("status", str(path))
     _one_error_line(result, "the study file is damaged")
     assert "no trial was started" in result.output
@@ -117,3 +122,17 @@ def test_a_new_study_in_a_read_only_folder_is_one_line(read_only_study: Path) ->
     spec = write_tiny_spec(folder.parent, name="fresh", trials=1, epochs=1)
     result = invoke("run", str(spec), "--storage", str(folder / "deeper" / "fresh.db"))
     _one_error_line(result, f"{folder}: no permission to create the study fresh.db here")
+
+
+def test_damage_found_mid_sweep_stops_with_one_line(tmp_path: Path) -> None:
+    from sweeper.errors import InputError
+    from sweeper.store.faults import storage_faults_of_study
+
+    path = tmp_path / "study.db"
+    _damaged_study(path)
+    malformed = sqlite3.DatabaseError("database disk image is malformed")
+    with (
+        pytest.raises(InputError, match=r"the study file is damaged .*Page"),
+        storage_faults_of_study(str(path)),
+    ):
+        raise RuntimeError("a write failed") from malformed

@@ -56,3 +56,12 @@ def _damage(connection: sqlite3.Connection) -> str:
         return ""
     text = " ".join(" ".join(found).replace("*** in database main ***", "").split())
     return text or "quick_check failed"
+
+
+def damage_found(path: Path) -> str:
+    """What ``PRAGMA quick_check`` finds wrong with ``path`` (empty when it finds nothing)."""
+    try:
+        with contextlib.closing(_read_only(path)) as connection:
+            return _damage(connection)
+    except sqlite3.DatabaseError as error:
+        return str(error)

@@ -17,7 +17,7 @@ from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
 from sweeper.store.attrs import StoredBaseline, StudyInfo, TrialInfo, set_stop_request
 from sweeper.store.connect import open_storage, redact, storage_url
-from sweeper.store.faults import disk_full_of_study
+from sweeper.store.faults import storage_faults_of_study
 from sweeper.sweep.cluster import run_on_cluster
 from sweeper.sweep.coordinator import Coordinator
 from sweeper.sweep.cores import usable_cores
@@ -101,7 +101,7 @@ def run_sweep(
     ``pool``: local worker processes the caller started earlier and closes
     (``sweeper.sweep.pool.local_pool``); when none is given, this makes and closes its own.
     """
-    with disk_full_of_study(spec.storage_location):
+    with storage_faults_of_study(spec.storage_location):
         if pool is not None or cluster:
             return _run(spec, display, cluster, pool)
         with local_pool(spec.study.workers) as own:
@@ -147,7 +147,7 @@ def join_sweep(
     threads, why = joiner_threads(study, spec)
     if tell is not None:
         tell(f"worker: {threads} torch thread{'s' if threads > 1 else ''} ({why})")
-    with disk_full_of_study(location):
+    with storage_faults_of_study(location):
         return _drive(study, spec, Placement(1, threads, joined=True), display or ProgressDisplay())
 
 

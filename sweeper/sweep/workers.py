@@ -27,7 +27,7 @@ from sweeper.store.attrs import (
     record_wall_seconds,
 )
 from sweeper.store.connect import engine_of, redact, retry_locked
-from sweeper.store.faults import disk_full_of_study, is_disk_full
+from sweeper.store.faults import is_damage, is_disk_full, storage_faults_of_study
 from sweeper.store.heartbeat import HeartbeatTiming
 from sweeper.store.optuna_internals import (
     claim_waiting_trial,
@@ -114,7 +114,7 @@ def work(
     restore = install_stop_signals(stop_event) if own_signals else None
     try:
         watch = own_signals if watch_requests is None else watch_requests
-        with disk_full_of_study(location):  # one line, and a plain error to send back
+        with storage_faults_of_study(location):  # one line, and a plain error to send back
             return _work(location, study_name, worker_index, stop_event, watch)
     finally:
         torch.set_num_threads(previous)
@@ -178,6 +178,8 @@ def _work(
     except Exception as error:
         if is_disk_full(error):  # every worker stops; nothing here is a trial's fault
             _request_stop_if_possible(study, "disk full")
+        elif is_damage(error):
+            _request_stop_if_possible(study, "the study file is damaged")
         raise
     finally:
         done_event.set()  # ends the watcher thread
@@ -269,7 +271,7 @@ def run_claimed(study: optuna.Study, claimed: int, context: TrialContext) -> Tri
             state, interrupted = TrialState.FAIL, True
             record_interrupted(trial, stop.epoch)
         except Exception as error:  # user code failed: record it, keep the study going
-            if is_disk_full(error):  # the storage's fault, not the trial's: nothing to learn
+            if is_disk_full(error) or is_damage(error):  # the storage's fault: nothing to learn
                 raise
             state = TrialState.FAIL
             record_failure(trial, _redacted_failure(error))
