@@ -16,8 +16,10 @@ from sweeper.store import checkpoints, epoch_rows
 from sweeper.store.connect import sqlite_path, storage_url
 
 
-def start(folder: Path, *args: str) -> subprocess.Popen[str]:
-    """``python -m sweeper ARGS`` in ``folder``; output goes to files beside the study."""
+def start(folder: Path, *args: str, own_group: bool = False) -> subprocess.Popen[str]:
+    """``python -m sweeper ARGS`` in ``folder``; output goes to files beside the study.
+
+    ``own_group``: in a process group of its own, so a test can kill it with its workers."""
     # the child keeps its own copies of the file descriptors
     with open(folder / "stdout.txt", "a") as out, open(folder / "stderr.txt", "a") as err:
         return subprocess.Popen(
@@ -26,6 +28,7 @@ def start(folder: Path, *args: str) -> subprocess.Popen[str]:
             stdout=out,
             stderr=err,
             text=True,
+            start_new_session=own_group,
         )
 
 
