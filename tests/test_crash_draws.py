@@ -17,7 +17,7 @@ from tests import processes as proc
 from tests.conftest import TINY
 
 FINISHED = (TrialState.COMPLETE, TrialState.PRUNED)
-KILLS = 4
+KILLS = 3
 
 
 def _finished(db: Path) -> int:
@@ -26,22 +26,23 @@ def _finished(db: Path) -> int:
 
 
 def _kill_soon_after_progress(tmp_path: Path, db: Path, moments: random.Random) -> None:
-    """Launch, wait for one more finished trial, then SIGKILL the whole process group at a
-    random moment of the next trials (a crash: nothing gets to record anything)."""
+    """Two launches at once, then, once one more trial finished, SIGKILL both process groups
+    at a random moment of the next trials (a crash: nothing gets to record anything)."""
     before = _finished(db) if db.exists() else 0
-    launcher = proc.start(tmp_path, "run", "crash.toml", own_group=True)
+    launchers = [proc.start(tmp_path, "run", "crash.toml", own_group=True) for _ in range(2)]
     try:
         proc.wait_for(lambda: _finished(db) > before, 120, "one more finished trial")
         time.sleep(moments.uniform(0.0, 0.6))
     finally:
-        os.killpg(launcher.pid, signal.SIGKILL)
-        launcher.wait(timeout=30)
+        for launcher in launchers:
+            os.killpg(launcher.pid, signal.SIGKILL)
+            launcher.wait(timeout=30)
 
 
 @pytest.mark.slow
 def test_crash_and_resume_loops_never_repeat_a_finished_configuration(tmp_path: Path) -> None:
     spec = TINY.format(name="crash", trials=10, workers=2, epochs=1, sampler="tpe")
-    # a short heartbeat: a killed trial is taken as dead after 3 s, so resumes are quick
+    # a short heartbeat, so that a killed trial is soon taken as dead and retried
     (tmp_path / "crash.toml").write_text(spec.replace("seed = 3", "seed = 3\nheartbeat = 1"))
     db = tmp_path / "runs" / "crash.db"
     moments = random.Random(13)

@@ -57,7 +57,9 @@ SQUARE = {"x": FloatDistribution(0.0, 1.0), "y": FloatDistribution(0.0, 1.0)}
 
 
 def _tpe(worker_index: int = 0) -> optuna.samplers.BaseSampler:
-    return make_sampler(_objective_spec(Path("."), "bowl", "tpe", UNIT_SQUARE), worker_index, stream=0)
+    return make_sampler(
+        _objective_spec(Path("."), "bowl", "tpe", UNIT_SQUARE), worker_index, stream=0
+    )
 
 
 def _draw(sampler: optuna.samplers.BaseSampler, trials: list[FrozenTrial]) -> dict:
