@@ -98,10 +98,12 @@ def test_a_small_space_is_drawn_without_repeats_until_it_is_used_up() -> None:
     study = optuna.create_study(sampler=make_sampler(spec, 0, stream=1))
     seen = set()
     for _ in range(4):
+        study.enqueue_trial({})  # as the launcher queues the budget: no fixed values
         trial = study.ask()
         seen.add(config_key(draw(trial, spec.search), list(spec.search)))
         study.tell(trial, 1.0)
     assert len(seen) == 4
+    study.enqueue_trial({})
     trial = study.ask()
     assert draw_outcome(trial).exhausted
     with pytest.raises(SpaceExhausted, match="every configuration of the search space"):

@@ -80,10 +80,11 @@ class DistinctSampler(BaseSampler):
     ) -> dict[str, Any]:
         if not search_space:
             return {}
-        if TrialInfo.of(trial).fixed_params is not None:
-            return self._from_base(study, trial)  # queued: its fixed values win anyway
+        fixed = TrialInfo.of(trial).fixed_params or {}
+        if all(name in fixed for name in self._names):
+            return self._from_base(study, trial)  # a retry or a grid point: fixed values win
         taken = _taken(study, trial.number, self._names)
-        params, redraws = self._distinct(study, trial, taken)
+        params, redraws = self._distinct(study, trial, taken, fixed)
         exhausted = params is None
         self._outcomes[trial.number] = DrawOutcome(self.stream, redraws, exhausted)
         return params or {}
@@ -113,21 +114,30 @@ class DistinctSampler(BaseSampler):
         self.base.reseed_rng()
 
     def _distinct(
-        self, study: optuna.Study, trial: FrozenTrial, taken: set[tuple[str, ...]]
+        self,
+        study: optuna.Study,
+        trial: FrozenTrial,
+        taken: set[tuple[str, ...]],
+        fixed: Mapping[str, Any],
     ) -> tuple[dict[str, Any] | None, int]:
-        """A configuration outside ``taken`` and the number of refused draws, or None."""
+        """A configuration outside ``taken`` and the number of refused draws, or None.
+        ``fixed``: values queued with the trial, which win over drawn ones."""
+
+        def fresh(params: Mapping[str, Any]) -> bool:
+            return config_key({**params, **fixed}, self._names) not in taken
+
         if self._grid is not None and len(taken) >= len(self._grid):
             return None, 0  # cheap exit before any draw: every point is used
         for redraws in range(SAMPLER_TRIES):
             params = self._from_base(study, trial)
-            if config_key(params, self._names) not in taken:
+            if fresh(params):
                 return params, redraws
         if self._grid is not None:
-            unused = [p for p in self._grid if config_key(p, self._names) not in taken]
+            unused = [point for point in self._grid if fresh(point)]
             return (self._pick.choice(unused) if unused else None), SAMPLER_TRIES
         for extra in range(UNIFORM_TRIES):
             params = self._uniform_draw(study, trial)
-            if config_key(params, self._names) not in taken:
+            if fresh(params):
                 return params, SAMPLER_TRIES + extra
         return None, SAMPLER_TRIES + UNIFORM_TRIES
 
