@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import os
 
 
 def derive_seed(*parts: object) -> int:
@@ -17,10 +18,17 @@ def trial_seed(study_seed: int, trial_number: int) -> int:
     return derive_seed("trial", study_seed, trial_number)
 
 
-def sampler_seed(study_seed: int, worker_index: int, trials_in_study: int) -> int:
-    """Seed of one worker's sampler.
+def sampler_seed(study_seed: int, worker_index: int, stream: int) -> int:
+    """Seed of one worker start's sampler.
 
-    Identically seeded samplers draw the same start-up configurations, so each worker (and
-    each later launch, which finds more trials in the study) gets a seed of its own.
+    Identically seeded samplers draw the same start-up configurations. A count of the
+    study's trials does not part them: after a kill and a quick resume, or two launches at
+    once, it is often unchanged. So each start draws a fresh ``stream`` (``new_stream``),
+    which its trials record, keeping the study reproducible from its record.
     """
-    return derive_seed("sampler", study_seed, worker_index, trials_in_study)
+    return derive_seed("sampler", study_seed, worker_index, stream)
+
+
+def new_stream() -> int:
+    """A fresh 31-bit stream number for one worker start (from the OS's random source)."""
+    return int.from_bytes(os.urandom(4), "big") & 0x7FFFFFFF

@@ -43,13 +43,13 @@ def _spec(sampler: str, search: str = RANGES) -> object:
 
 
 def test_each_sampler_name_builds_its_sampler() -> None:
-    assert isinstance(make_sampler(_spec("tpe"), 0, 0), optuna.samplers.TPESampler)
-    assert isinstance(make_sampler(_spec("sobol"), 0, 0), optuna.samplers.QMCSampler)
-    assert isinstance(make_sampler(_spec("cmaes"), 0, 0), optuna.samplers.CmaEsSampler)
-    assert isinstance(make_sampler(_spec("random"), 0, 0), optuna.samplers.RandomSampler)
+    assert isinstance(make_sampler(_spec("tpe"), 0).base, optuna.samplers.TPESampler)
+    assert isinstance(make_sampler(_spec("sobol"), 0).base, optuna.samplers.QMCSampler)
+    assert isinstance(make_sampler(_spec("cmaes"), 0).base, optuna.samplers.CmaEsSampler)
+    assert isinstance(make_sampler(_spec("random"), 0).base, optuna.samplers.RandomSampler)
     # grid points arrive fully fixed through the queue; the sampler draws nothing
     grid = _spec("grid", "unroll = { one_of = [2, 4] }")
-    assert isinstance(make_sampler(grid, 0, 0), optuna.samplers.RandomSampler)
+    assert isinstance(make_sampler(grid, 0).base, optuna.samplers.RandomSampler)
 
 
 UNIT_SQUARE = "x = { between = [0.0, 1.0] }\ny = { between = [0.0, 1.0] }"
@@ -57,7 +57,9 @@ SQUARE = {"x": FloatDistribution(0.0, 1.0), "y": FloatDistribution(0.0, 1.0)}
 
 
 def _tpe(worker_index: int = 0) -> optuna.samplers.BaseSampler:
-    return make_sampler(_objective_spec(Path("."), "bowl", "tpe", UNIT_SQUARE), worker_index, 0)
+    return make_sampler(
+        _objective_spec(Path("."), "bowl", "tpe", UNIT_SQUARE), worker_index, stream=0
+    )
 
 
 def _draw(sampler: optuna.samplers.BaseSampler, trials: list[FrozenTrial]) -> dict:
@@ -99,7 +101,7 @@ def test_sobol_draws_cover_the_space_evenly() -> None:
     # Sobol 1967: the first 2^m points of the first two Sobol dimensions put exactly one point
     # in each of the 2^m columns and each of the 2^m rows of the unit square; Owen's
     # scrambling (1995) keeps that. optuna draws the first trial at random, then the sequence.
-    sampler = make_sampler(_objective_spec(Path("."), "bowl", "sobol", UNIT_SQUARE), 0, 0)
+    sampler = make_sampler(_objective_spec(Path("."), "bowl", "sobol", UNIT_SQUARE), 0, stream=0)
     study = optuna.create_study(sampler=sampler)
     for _ in range(9):
         trial = study.ask(SQUARE)

@@ -92,8 +92,8 @@ def test_worker_samplers_are_seeded_apart(tmp_path: Path) -> None:
     spec = load_spec(write_tiny_spec(tmp_path))
     space = parse_search("t", {"lr": {"between": [1e-4, 1.0], "scale": "log"}})
 
-    def first_draws(worker: int, trials_in_study: int) -> list[float]:
-        study = optuna.create_study(sampler=make_sampler(spec, worker, trials_in_study))
+    def first_draws(worker: int) -> list[float]:
+        study = optuna.create_study(sampler=make_sampler(spec, worker))
         draws = []
         for _ in range(5):
             trial = study.ask()
@@ -103,7 +103,8 @@ def test_worker_samplers_are_seeded_apart(tmp_path: Path) -> None:
             study.tell(trial, 1.0)
         return draws
 
-    launches = [first_draws(0, 0), first_draws(1, 0), first_draws(0, 8)]
+    # two starts of worker 0 with an unchanged study: each start draws a fresh stream
+    launches = [first_draws(0), first_draws(1), first_draws(0)]
     values = [value for draws in launches for value in draws]
     assert len(set(values)) == len(values)
 

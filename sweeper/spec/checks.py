@@ -8,6 +8,12 @@ from typing import TYPE_CHECKING, Any
 
 from sweeper.did_you_mean import closest
 from sweeper.errors import SpecError
+from sweeper.spec.footprint import (
+    available_memory,
+    describe_shortfall,
+    largest_footprint,
+    size_keys,
+)
 from sweeper.spec.space import Choices, Fixed, Range, SearchEntry, grid_size
 from sweeper.tasks.objective import Objective, load_objective
 from sweeper.training.params import PARAM_NAMES, TrialParams
@@ -24,7 +30,9 @@ def check_spec_against_task(spec: Spec) -> None:
         _check_objective(spec)
     else:
         _check_training_space(spec)
-        _check_unroll(spec, build_spec_task(spec))
+        task = build_spec_task(spec)
+        _check_unroll(spec, task)
+        _check_footprint(spec, task)
     _check_sampler(spec)
 
 
@@ -131,6 +139,19 @@ def _check_unroll(spec: Spec, task: Task) -> None:
             f"unroll {longest} is longer than the task's sequences ({task.length} steps); "
             f"use at most {task.length}",
         )
+
+
+def _check_footprint(spec: Spec, task: Task) -> None:
+    """Refuse a search space whose largest network cannot fit in this machine's memory."""
+    if spec.task.model is not None:
+        return  # the spec's own network: its size is not ours to estimate
+    available = available_memory()
+    if available is None:
+        return
+    largest = largest_footprint(spec, task.input_size, task.output_size)
+    shortfall = describe_shortfall(spec, largest, available)
+    if shortfall is not None:
+        raise SpecError(spec.source, ", ".join(size_keys(spec)), shortfall)
 
 
 def _check_sampler(spec: Spec) -> None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from sweeper.spec.checks import build_spec_task
+from sweeper.spec.probe import describe_planned_compute
 from sweeper.spec.sections import Spec, budget_of
 from sweeper.spec.space import Choices, Fixed, Range, SearchEntry
 
@@ -47,4 +48,12 @@ def describe_spec(spec: Spec) -> str:
         f"  budget   {budget} trials{epochs} on {study.workers} worker(s); "
         f"storage {spec.storage_location}"
     )
+    if not spec.is_objective_plugin:
+        lines.append(f"  compute  {_planned(spec)}")
     return "\n".join(lines)
+
+
+def _planned(spec: Spec) -> str:
+    if spec.task.model is not None:
+        return "planned compute not probed (the spec's own network)"
+    return describe_planned_compute(spec, build_spec_task(spec))

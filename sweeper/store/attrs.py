@@ -38,6 +38,9 @@ functions; read through ``TrialInfo``):
 ``interrupted``         true when a stop request ended it; the next launch continues it
 ``retry_of``            the trial it retries or continues (its origin), when not itself
 ``resumed_from_epoch``  the epoch its origin's checkpoint had reached
+``draw``                ``{stream, redraws}``: the sampler stream of its worker start, and how
+                        many drawn configurations it refused as copies of finished or running
+                        trials
 ======================  ======================================================================
 
 Trial system attributes: ``failed_trial`` and ``retry_history`` are optuna's (its heartbeat
@@ -298,6 +301,15 @@ class TrialInfo:
         return _int(self.user.get("resumed_from_epoch"))
 
     @property
+    def draw(self) -> tuple[int, int] | None:
+        """``(stream, redraws)`` of the drawn configuration, when one was recorded."""
+        raw = self.user.get("draw")
+        if not isinstance(raw, Mapping):
+            return None
+        stream, redraws = _int(raw.get("stream")), _int(raw.get("redraws"))
+        return None if stream is None or redraws is None else (stream, redraws)
+
+    @property
     def failed_trial(self) -> int | None:
         """The trial this one retries or continues, as optuna's retry records it."""
         value = self.system.get("failed_trial")
@@ -335,6 +347,10 @@ def record_start(trial: optuna.Trial, seed: int, worker: str, origin: int) -> No
         trial.set_user_attr("retry_of", origin)
     trial.set_user_attr("seed", seed)
     trial.set_user_attr("worker", worker)
+
+
+def record_draw(trial: optuna.Trial, stream: int, redraws: int) -> None:
+    trial.set_user_attr("draw", {"stream": stream, "redraws": redraws})
 
 
 def record_training(trial: optuna.Trial, training: Mapping[str, Any], threads: int) -> None:

@@ -19,6 +19,7 @@ from sweeper.spec.sections import Spec
 from sweeper.spec.space import draw
 from sweeper.store import attrs, checkpoints, epoch_rows
 from sweeper.store.attrs import TrialInfo
+from sweeper.sweep.distinct_sampler import SpaceExhausted, draw_outcome
 from sweeper.tasks.base import Task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
@@ -57,13 +58,30 @@ def worst_value(spec: Spec) -> float:
 
 def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:
     """Run one trial; raise optuna.TrialPruned when stopped early or diverged."""
-    params = draw(trial, ctx.spec.search)
+    params = _draw_distinct(trial, ctx.spec)
     origin = TrialInfo.live(trial).origin  # the trial it retries or continues, or itself
     seed = trial_seed(ctx.spec.study.seed, origin)
     attrs.record_start(trial, seed, ctx.worker, origin)
     if ctx.spec.is_objective_plugin:
         return _run_objective(trial, ctx, params)
     return _run_training(trial, ctx, params, seed, origin)
+
+
+def _draw_distinct(trial: optuna.Trial, spec: Spec) -> dict[str, Any]:
+    """The trial's parameters, never a copy of a finished or running trial's (the sampler
+    refused copies when the trial started); stops the sweep when none is left."""
+    outcome = draw_outcome(trial)
+    if outcome is not None and outcome.exhausted:
+        reason = (
+            f"{spec.source}: search: every configuration of the search space has been run "
+            "or is running; widen the space or lower the budget"
+        )
+        attrs.set_stop_request(trial.study, reason)
+        raise SpaceExhausted(reason)
+    params = draw(trial, spec.search)
+    if outcome is not None:
+        attrs.record_draw(trial, outcome.stream, outcome.redraws)
+    return params
 
 
 def _continue_from_checkpoint(

@@ -15,7 +15,7 @@ import optuna
 from optuna.trial import FrozenTrial, TrialState
 
 from sweeper.errors import SpecChanged, StudyNotFound
-from sweeper.seeds import sampler_seed
+from sweeper.seeds import new_stream, sampler_seed
 from sweeper.spec.loading import parse_spec
 from sweeper.spec.sections import MUTABLE_KEYS, Spec, budget_of, spec_from_text
 from sweeper.spec.space import grid_points
@@ -30,6 +30,7 @@ from sweeper.store.attrs import (
     write_launch,
 )
 from sweeper.store.connect import open_storage, redact
+from sweeper.sweep.distinct_sampler import DistinctSampler
 
 FINISHED = (TrialState.COMPLETE, TrialState.PRUNED)
 # Random trials before TPE models the results. Early stopping makes them cheap but also
@@ -44,10 +45,15 @@ def quiet_optuna() -> None:
     warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
 
 
-def make_sampler(
-    spec: Spec, worker_index: int, trials_in_study: int
-) -> optuna.samplers.BaseSampler:
-    seed = sampler_seed(spec.study.seed, worker_index, trials_in_study)
+def make_sampler(spec: Spec, worker_index: int, stream: int | None = None) -> DistinctSampler:
+    """The spec's sampler for one worker start, drawing from a fresh stream (or ``stream``),
+    wrapped so that it never proposes a configuration already finished or running."""
+    stream = new_stream() if stream is None else stream
+    base = _base_sampler(spec, sampler_seed(spec.study.seed, worker_index, stream))
+    return DistinctSampler(base, spec.search, stream)
+
+
+def _base_sampler(spec: Spec, seed: int) -> optuna.samplers.BaseSampler:
     name = spec.study.sampler
     if name == "tpe":
         # Constant liar keeps parallel workers from piling onto the same promising point.

@@ -167,7 +167,7 @@ def _work(
     quiet_optuna()
     study, spec = load_existing(location, study_name)
     set_heartbeat(rdb_storage(study), HeartbeatTiming(spec.study.heartbeat))
-    study.sampler = make_sampler(spec, worker_index, len(study.get_trials(deepcopy=False)))
+    study.sampler = make_sampler(spec, worker_index)
     study.pruner = make_pruner(spec)
     context = _context(study, spec, worker_index, stop_event)
     done_event = threading.Event()
