@@ -18,7 +18,7 @@ from pathlib import Path
 
 import optuna
 
-from benchmarks.synthetic_study import make_synthetic_study
+from synthetic_study import make_synthetic_study
 from sweeper.report.render import build_report
 
 TARGET_SECONDS = 15.0

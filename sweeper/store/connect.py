@@ -99,8 +99,9 @@ def open_storage(
     and an in-process worker together stay within the pool's three connections.
     """
     url = storage_url(location)
-    key = (os.getpid(), url, read_only)
     path = sqlite_path(url)
+    # a server's storage is the same for readers: one engine, within the three connections
+    key = (os.getpid(), url, read_only and path is not None)
     if key in _OPEN and (path is None or path.exists()):
         return _OPEN[key]
     if path is not None:
