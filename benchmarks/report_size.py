@@ -17,8 +17,8 @@ import time
 from pathlib import Path
 
 import optuna
-
 from synthetic_study import make_synthetic_study
+
 from sweeper.report.render import build_report
 
 TARGET_SECONDS = 15.0
