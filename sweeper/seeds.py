@@ -23,8 +23,8 @@ def sampler_seed(study_seed: int, worker_index: int, stream: int) -> int:
 
     Identically seeded samplers draw the same start-up configurations. A count of the
     study's trials does not part them: after a kill and a quick resume, or two launches at
-    once, it is often unchanged. So each start draws a fresh ``stream`` (``new_stream``),
-    which its trials record, keeping the study reproducible from its record.
+    once, it is often unchanged. So each start takes the study's next ``stream``
+    (``sweeper.store.draw_streams``), which its trials record.
     """
     return derive_seed("sampler", study_seed, worker_index, stream)
 

@@ -3,6 +3,9 @@ start draws from a fresh recorded stream, and a drawn copy is refused and drawn 
 
 from __future__ import annotations
 
+import multiprocessing
+from pathlib import Path
+
 import optuna
 import pytest
 from optuna.trial import TrialState, create_trial
@@ -10,6 +13,9 @@ from optuna.trial import TrialState, create_trial
 from sweeper.spec.loading import parse_spec
 from sweeper.spec.space import distributions, draw
 from sweeper.store.attrs import StudyInfo
+from sweeper.store.connect import open_storage
+from sweeper.store.draw_streams import next_stream
+from sweeper.store.tables import ensure_tables
 from sweeper.sweep.distinct_sampler import (
     DistinctSampler,
     SpaceExhausted,
@@ -126,3 +132,26 @@ def test_the_wrapper_refuses_copies_from_a_sampler_that_keeps_proposing_one_poin
         study.tell(trial, 1.0)
     keys = [config_key(t.params, list(spec.search)) for t in study.trials]
     assert len(set(keys)) == 6
+
+
+def _take_streams(path: str, count: int, results) -> None:
+    engine = open_storage(path).engine
+    results.put([next_stream(engine, "s") for _ in range(count)])
+
+
+def test_worker_starts_take_streams_in_order_and_never_share_one(tmp_path: Path) -> None:
+    path = str(tmp_path / "streams.db")
+    engine = open_storage(path).engine
+    ensure_tables(engine)
+    assert [next_stream(engine, "s"), next_stream(engine, "s")] == [0, 1]  # reproducible order
+    assert next_stream(engine, "other study") == 0
+    context = multiprocessing.get_context("fork")
+    results = context.Queue()
+    children = [context.Process(target=_take_streams, args=(path, 20, results)) for _ in "ab"]
+    for child in children:
+        child.start()
+    taken = [results.get(timeout=60) for _ in children]
+    for child in children:
+        child.join(30)
+    streams = taken[0] + taken[1]
+    assert sorted(streams) == list(range(2, 42))  # simultaneous starts: each stream once

@@ -27,6 +27,7 @@ from sweeper.store.attrs import (
     record_wall_seconds,
 )
 from sweeper.store.connect import engine_of, redact, retry_locked
+from sweeper.store.draw_streams import next_stream
 from sweeper.store.faults import is_damage, is_disk_full, storage_faults_of_study
 from sweeper.store.heartbeat import HeartbeatTiming
 from sweeper.store.optuna_internals import (
@@ -167,7 +168,7 @@ def _work(
     quiet_optuna()
     study, spec = load_existing(location, study_name)
     set_heartbeat(rdb_storage(study), HeartbeatTiming(spec.study.heartbeat))
-    study.sampler = make_sampler(spec, worker_index)
+    study.sampler = make_sampler(spec, worker_index, next_stream(engine_of(study), study_name))
     study.pruner = make_pruner(spec)
     context = _context(study, spec, worker_index, stop_event)
     done_event = threading.Event()
