@@ -96,6 +96,7 @@ def _connections(engine: sa.Engine) -> Counter[str]:
     return Counter(names)
 
 
+@pytest.mark.slow  # four hosts' processes on one PostgreSQL study
 @pytest.mark.postgres
 def test_three_hosts_one_killed_mid_trial(tmp_path: Path, postgres_url: str) -> None:
     password = postgres_url.split(":")[2].split("@")[0]
@@ -212,6 +213,7 @@ with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0
 """
 
 
+@pytest.mark.slow  # starts a Dask scheduler and its workers
 def test_dask_local_cluster_runs_the_workers(tmp_path: Path) -> None:
     pytest.importorskip("distributed")
     if shutil.which("true") is None:  # pragma: no cover - POSIX only
