@@ -9,11 +9,17 @@ upgrade that changes one of them fails there first rather than inside a sweep.
 
 from __future__ import annotations
 
+import contextlib
 from typing import Any
 
 import optuna
 import sqlalchemy as sa
-from optuna.storages._heartbeat import get_heartbeat_thread
+from optuna.storages._heartbeat import (
+    BaseHeartbeat,
+    HeartbeatThread,
+    get_heartbeat_thread,
+    is_heartbeat_enabled,
+)
 from optuna.storages._rdb.models import TrialHeartbeatModel
 from optuna.trial import FrozenTrial, TrialState
 
@@ -78,8 +84,36 @@ def retry_as_stale(study: optuna.Study, failed_id: int) -> None:
 
 
 def heartbeat_thread(study: optuna.Study, running_id: int) -> Any:
-    """A context manager that records the trial's heartbeat every interval while it runs."""
-    return get_heartbeat_thread(running_id, cached_storage(study))
+    """A context manager that records the trial's heartbeat every interval while it runs.
+
+    A beat that cannot be written (a full disk, a lock held too long) is skipped rather than
+    ending the thread with a traceback: the trial's own next write reports the fault in one
+    line, and beats that stay missing make the trial stale, which retries it.
+    """
+    storage = cached_storage(study)
+    if not is_heartbeat_enabled(storage):
+        return get_heartbeat_thread(running_id, storage)
+    return HeartbeatThread(running_id, _SkippingBeats(storage))
+
+
+class _SkippingBeats(BaseHeartbeat):
+    """The storage's heartbeat, with beats that fail on the database skipped."""
+
+    def __init__(self, storage: Any) -> None:
+        self._storage = storage
+
+    def record_heartbeat(self, trial_id: int) -> None:
+        with contextlib.suppress(sa.exc.OperationalError, optuna.exceptions.StorageInternalError):
+            self._storage.record_heartbeat(trial_id)
+
+    def _get_stale_trial_ids(self, study_id: int) -> list[int]:
+        return self._storage._get_stale_trial_ids(study_id)
+
+    def get_heartbeat_interval(self) -> int | None:
+        return self._storage.get_heartbeat_interval()
+
+    def get_heartbeat_stale_trial_callback(self) -> Any:
+        return self._storage.get_heartbeat_stale_trial_callback()
 
 
 def trials_with_heartbeat(study: optuna.Study) -> set[int]:
