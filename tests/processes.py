@@ -12,6 +12,7 @@ from pathlib import Path
 import optuna
 import sqlalchemy as sa
 
+from sweeper.results.replay import COMPARED
 from sweeper.store import checkpoints, epoch_rows
 from sweeper.store.connect import sqlite_path, storage_url
 
@@ -158,16 +159,5 @@ def curves_at(location: str, name: str) -> dict[int, list[tuple]]:
     return out
 
 
-CURVE_COLUMNS = (
-    "epoch",
-    "train_loss",
-    "valid_loss",
-    "valid_metric",
-    "grad_norm_mean",
-    "grad_norm_median",
-    "grad_norm_p95",
-    "grad_norm_max",
-    "clip_fraction",
-    "nonfinite_steps",
-    "steps",
-)
+# what a curve holds: every number a replay compares, by epoch
+CURVE_COLUMNS = ("epoch", *COMPARED)
