@@ -151,29 +151,45 @@ def _pool_workers(launcher_pid: int) -> list[int]:
     return [pid for server in servers for pid in proc.children(server)]
 
 
-@pytest.mark.parametrize("moment", ["during an epoch", "right after a checkpoint"])
-def test_sigkill_one_worker_then_resume(tmp_path: Path, moment: str) -> None:
-    spec = _spec(tmp_path, trials=4, workers=2, epochs=3)
-    db = tmp_path / "runs" / "r.db"
-    launcher = proc.start(tmp_path, "run", spec.name)
-    proc.wait_for(lambda: len(_pool_workers(launcher.pid)) == 2, 120, "two workers")
+def _kill_a_checkpointed_worker(launcher_pid: int, db: Path, pause: float) -> None:
+    """SIGKILL a pool worker ``pause`` seconds after its trial saved its first checkpoint.
+
+    The worker is stopped (SIGSTOP) before it is checked to be still inside that trial, so a
+    loaded machine cannot let it move on between the check and the kill."""
+    proc.wait_for(lambda: len(_pool_workers(launcher_pid)) == 2, 120, "two workers")
     victim: list[int] = []
 
     def checkpointed_worker() -> bool:
         victim[:] = [
-            pid for pid in _checkpointed_worker_pids(db) if pid in _pool_workers(launcher.pid)
+            pid for pid in _checkpointed_worker_pids(db) if pid in _pool_workers(launcher_pid)
         ]
         return bool(victim)
 
     while True:
         proc.wait_for(checkpointed_worker, 120, "a running trial with a checkpoint")
-        if moment == "during an epoch":
-            time.sleep(0.3)
-        # still inside that trial (a loaded machine may have let it finish meanwhile)
+        time.sleep(pause)
+        os.kill(victim[0], signal.SIGSTOP)
         if victim[0] in _checkpointed_worker_pids(db, last_epoch=2):
-            break
-    os.kill(victim[0], signal.SIGKILL)
-    launcher.wait(timeout=240)
+            os.kill(victim[0], signal.SIGKILL)
+            return
+        os.kill(victim[0], signal.SIGCONT)  # it finished that trial meanwhile: try the next
+
+
+@pytest.mark.parametrize("moment", ["during an epoch", "right after a checkpoint"])
+def test_sigkill_one_worker_then_resume(tmp_path: Path, moment: str) -> None:
+    # epochs of about half a second, so that the kill has a wide window inside one trial
+    spec = _spec(tmp_path, trials=4, workers=2, epochs=3, sequences=8192)
+    db = tmp_path / "runs" / "r.db"
+    launcher = proc.start(tmp_path, "run", spec.name, new_group=True)
+    try:
+        _kill_a_checkpointed_worker(
+            launcher.pid, db, pause=0.3 if moment == "during an epoch" else 0
+        )
+        launcher.wait(timeout=240)
+    finally:
+        if launcher.poll() is None:  # a failed wait must not leave the sweep running
+            os.killpg(launcher.pid, signal.SIGKILL)
+            launcher.wait()
 
     resumed = proc.run(tmp_path, "resume", "runs/r.db")
     assert resumed.returncode == 0, resumed.stderr
