@@ -23,7 +23,7 @@ class TrialGradients:
     """One trial's pre-clip gradient norms summarised over its epochs (NaN when unknown)."""
 
     number: int
-    state: str
+    state: str  # our word (store.trial_words)
     diverged: bool
     value: float
     clip: float
@@ -63,7 +63,7 @@ def _summarise(trial: TrialRow, s: dict[str, np.ndarray]) -> TrialGradients:
     )
     return TrialGradients(
         number=trial.number,
-        state=trial.state,
+        state=trial.word,
         diverged=trial.diverged,
         value=trial.value,
         clip=trial.clip,

@@ -36,6 +36,7 @@ functions; read through ``TrialInfo``):
 ``diverged``            true when it stopped because its loss went non-finite
 ``failure``             ``{type, message, traceback}`` of the exception it raised
 ``interrupted``         true when a stop request ended it; the next launch continues it
+``confirms``            the trial whose configuration it repeats with another seed
 ``retry_of``            the trial it retries or continues (its origin), when not itself
 ``resumed_from_epoch``  the epoch its origin's checkpoint had reached
 ``draw``                ``{stream, redraws}``: the sampler stream of its worker start, and how
@@ -291,6 +292,11 @@ class TrialInfo:
     @property
     def interrupted(self) -> bool:
         return bool(self.user.get("interrupted", False))
+
+    @property
+    def confirms(self) -> int | None:
+        """The trial whose configuration this one repeats with another seed, if any."""
+        return _int(self.user.get("confirms"))
 
     @property
     def retry_of(self) -> int | None:
