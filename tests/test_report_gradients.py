@@ -124,7 +124,7 @@ def test_divergence_advice_names_high_lr_and_clipping_off() -> None:
     ]
     texts = _texts(_tables(calm + wild))
     (line,) = [t for t in texts if "diverged" in t]
-    assert line.startswith("3 of 9 finished trials diverged")
+    assert line.startswith("3 of the 9 trials that ran to an end diverged")
     assert "lower the top of the lr range" in line
     assert "3 of them ran with clipping off: turn clipping on" in line
 

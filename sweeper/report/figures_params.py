@@ -16,6 +16,7 @@ from sweeper.report.ranking import best
 from sweeper.report.theme import (
     AMBER,
     INK,
+    SLATE,
     TEAL,
     Drawn,
     Missing,
@@ -36,7 +37,7 @@ def importance_figure(result: ImportanceResult) -> Drawn:
         x=shares,
         y=[label(r.name) for r in rows],
         orientation="h",
-        marker={"color": TEAL},
+        marker={"color": SLATE},
         error_x={
             "type": "data",
             "symmetric": False,

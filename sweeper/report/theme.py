@@ -29,6 +29,7 @@ SKY = "#3d7fb5"
 OLIVE = "#7a8f2e"
 KHAKI = "#a08a5c"
 SAND = "#cbbfa6"
+SLATE = "#5d6d7a"  # quantities that are not trials (importance shares)
 
 # Outcome of a trial: (colour, marker symbol), keyed by our state words.
 OUTCOMES: dict[str, tuple[str, str]] = {
