@@ -18,6 +18,7 @@ from sweeper.report.importance import Importance
 from sweeper.report.sections_choice import chosen_from_trials, spec_fragment
 from sweeper.report.sections_search import _unroll_cost_line, overlapping
 from sweeper.report.task_facts import dependency_length
+from sweeper.report.theme import log_ticks
 
 SPACE = {"unroll": IntDistribution(2, 64), "lr": FloatDistribution(1e-4, 1.0, log=True)}
 
@@ -110,3 +111,18 @@ def test_the_spec_fragment_reads_back_as_the_chosen_values() -> None:
     table = tomllib.loads(spec_fragment(chosen))["training"]
     assert table == {"unroll": 32, "lr": 0.01}
     assert math.isnan(chosen.spread) and not chosen.confirmed
+
+
+@pytest.mark.parametrize(
+    ("values", "ticks"),
+    [
+        ([0.5, 5.0], [0.5, 1, 2, 5]),
+        ([0.001, 0.02], [0.001, 0.002, 0.005, 0.01, 0.02]),
+        ([1e-4, 1.0], [1e-4, 1e-3, 1e-2, 1e-1, 1]),
+        ([1e-6, 1e3], [1e-6, 1e-4, 1e-2, 1, 1e2]),  # whole decades, every other one
+        ([0.31, 0.47], [0.31, 0.47]),  # narrower than one step: its rounded ends
+        ([math.nan, -1.0], []),
+    ],
+)
+def test_log_axes_get_few_round_ticks(values: list[float], ticks: list[float]) -> None:
+    assert log_ticks(values) == pytest.approx(ticks)

@@ -72,8 +72,8 @@ def norm_clip_figure(rows: Sequence[TrialGradients]) -> Drawn:
         traces,
         layout(
             height=420,
-            xaxis=axis("clip threshold", log=True),
-            yaxis=axis("peak p95 pre-clip norm", log=True),
+            xaxis=axis("clip threshold", log=True, values=[*thresholds, off_x]),
+            yaxis=axis("peak p95 pre-clip norm", log=True, values=[r.peak_p95 for r in usable]),
         ),
     )
     if thresholds:
@@ -146,5 +146,6 @@ def norm_curves_figure(tables: StudyTables, rows: Sequence[TrialGradients]) -> D
         )
     if not traces:
         return Missing("No per-epoch gradient norms to draw.")
-    norm_axis = axis("median pre-clip norm", log=True)
+    shown = [v for trace in traces for v in trace.y]
+    norm_axis = axis("median pre-clip norm", log=True, values=shown)
     return go.Figure(traces, layout(height=400, xaxis=axis("epoch"), yaxis=norm_axis))

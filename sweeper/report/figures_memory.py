@@ -61,18 +61,19 @@ def memory_figure(tables: StudyTables, dependency: Dependency | None) -> Drawn:
         fig.add_annotation(
             x=dependency.steps,
             y=1.0,
-            yref="paper",
-            text=label(f"task {dependency.name} = {dependency.steps}"),
+            yref="y domain",
+            text=label(f" task {dependency.name} = {dependency.steps}"),
             showarrow=False,
             xanchor="left",
-            yanchor="bottom",
+            yanchor="top",
             font={"color": INK},
         )
     fig.update_layout(layout(height=520, showlegend=True))
     fig.update_xaxes(axis("unroll (steps)"), row=2, col=1)
     fig.update_xaxes(axis("unroll (steps)", showticklabels=True), row=1, col=1)
-    fig.update_yaxes(axis(objective, log=_wide([t.value for t in done])), row=1, col=1)
-    fig.update_yaxes(axis("compute s", log=_wide([t.seconds for t in costed])), row=2, col=1)
+    values, seconds = [t.value for t in done], [t.seconds for t in costed]
+    fig.update_yaxes(axis(objective, log=_wide(values), values=values), row=1, col=1)
+    fig.update_yaxes(axis("compute s", log=_wide(seconds), values=seconds), row=2, col=1)
     return fig
 
 

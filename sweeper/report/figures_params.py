@@ -78,7 +78,8 @@ def response_figures(tables: StudyTables) -> list[tuple[str, Drawn]]:
         return [("response", Missing("No searched parameter took more than one value."))]
     leader = best(tables)
     objective = label(tables.summary.objective or "value")
-    y_axis = axis(objective, log=_wide(v.value for v in done))
+    values = [t.value for t in done]
+    y_axis = axis(objective, log=_wide(values), values=values)
     return [(info.name, _response_panel(info, done, leader, y_axis)) for info in params]
 
 
@@ -107,7 +108,13 @@ def _response_panel(
         if group
     ]
     return go.Figure(
-        traces, layout(height=280, showlegend=False, xaxis=_param_axis(info), yaxis=y_axis)
+        traces,
+        layout(
+            height=280,
+            showlegend=False,
+            xaxis=_param_axis(info, [t.params[info.name] for t in used]),
+            yaxis=y_axis,
+        ),
     )
 
 
@@ -122,11 +129,11 @@ def _x(info: ParamInfo, value: Any) -> Any:
     return label(value) if info.kind == "categorical" else value
 
 
-def _param_axis(info: ParamInfo) -> dict[str, Any]:
+def _param_axis(info: ParamInfo, values: Sequence[Any] = ()) -> dict[str, Any]:
     if info.kind == "categorical":
         order = [label(c) for c in info.choices]
         return axis(label(info.name), type="category", categoryorder="array", categoryarray=order)
-    return axis(label(info.name), log=info.log)
+    return axis(label(info.name), log=info.log, values=values)
 
 
 def _wide(values: Any) -> bool:

@@ -76,8 +76,8 @@ def stability_figure(rows: Sequence[TrialGradients]) -> Drawn:
         traces,
         layout(
             height=420,
-            xaxis=axis("learning rate", log=True),
-            yaxis=axis("clip threshold", log=True),
+            xaxis=axis("learning rate", log=True, values=[r.lr for r in usable]),
+            yaxis=axis("clip threshold", log=True, values=[*thresholds, off_y]),
         ),
     )
     if len(thresholds) < len(usable):

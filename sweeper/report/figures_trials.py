@@ -93,7 +93,7 @@ def curves_figure(tables: StudyTables) -> Drawn:
         layout(
             height=420,
             xaxis=axis("epoch"),
-            yaxis=axis(objective, log=_positive_wide(values)),
+            yaxis=axis(objective, log=_positive_wide(values), values=values),
         ),
     )
 
@@ -151,8 +151,9 @@ def cost_figure(tables: StudyTables) -> Drawn:
         **hover(template),
     )
     objective = label(tables.summary.objective or "value")
-    x_axis = axis("compute seconds", log=_positive_wide([t.seconds for t in done]))
-    y_axis = axis(objective, log=_positive_wide([t.value for t in done]))
+    seconds, values = [t.seconds for t in done], [t.value for t in done]
+    x_axis = axis("compute seconds", log=_positive_wide(seconds), values=seconds)
+    y_axis = axis(objective, log=_positive_wide(values), values=values)
     return go.Figure([dots, edge], layout(height=400, xaxis=x_axis, yaxis=y_axis))
 
 

@@ -18,6 +18,8 @@ from sweeper.report.ranking import pareto_front
 from sweeper.report.sections_choice import ranked_table
 from sweeper.report.task_facts import dependency_length
 
+MIN_EXPLAINED = 0.5  # share of the variance a fit must explain before the page states it
+
 
 def memory_section(tables: StudyTables, book: FigureBook) -> str:
     dependency = dependency_length(tables.summary)
@@ -45,7 +47,15 @@ def _unroll_cost_line(tables: StudyTables) -> str:
         return ""
     x = np.log([t.unroll for t in usable])
     y = np.log([t.seconds / t.epochs for t in usable])
-    slope = float(np.polyfit(x, y, 1)[0])
+    slope, intercept = (float(c) for c in np.polyfit(x, y, 1))
+    spread = float(np.var(y))
+    explained = 1.0 - float(np.var(y - (slope * x + intercept))) / spread if spread > 0 else 1.0
+    if explained < MIN_EXPLAINED:
+        return para(
+            f"Compute per epoch does not follow the unroll length clearly here (a power law "
+            f"explains {explained:.0%} of its spread over {len(usable)} trials).",
+            "context",
+        )
     doubling = 2**slope
     return para(
         f"Compute per epoch grows about {doubling:.2f}× when the unroll doubles "

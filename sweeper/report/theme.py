@@ -78,8 +78,32 @@ def outcome_marker(word: str, size: int = 7) -> dict[str, Any]:
     }
 
 
-def axis(title: str, *, log: bool = False, **extra: Any) -> dict[str, Any]:
-    """An axis with its title; a log axis gets few, plain ticks (at most about five)."""
+MOST_TICKS = 5
+
+
+def log_ticks(values: Any, most: int = MOST_TICKS) -> list[float]:
+    """At most ``most`` round ticks (1-2-5, then 1-3, then whole decades, thinned) spanning the
+    positive finite ``values``; empty when there are none, so the chart library decides."""
+    data = np.asarray([v for v in values if v is not None], dtype=np.float64)
+    data = data[np.isfinite(data) & (data > 0)]
+    if not data.size:
+        return []
+    low, high = float(data.min()), float(data.max())
+    decades = range(math.floor(math.log10(low)), math.ceil(math.log10(high)) + 1)
+    for steps in ((1, 2, 5), (1, 3), (1,)):
+        ticks = [m * 10.0**d for d in decades for m in steps if low <= m * 10.0**d <= high]
+        if 2 <= len(ticks) <= most:
+            return ticks
+    whole = [10.0**d for d in decades if low <= 10.0**d <= high]
+    if len(whole) > most:
+        step = math.ceil(len(whole) / most)
+        return whole[::step]
+    # a range narrower than 1 to 2: its two ends, rounded
+    return sorted({float(f"{low:.2g}"), float(f"{high:.2g}")})
+
+
+def axis(title: str, *, log: bool = False, values: Any = None, **extra: Any) -> dict[str, Any]:
+    """An axis with its title; a log axis gets few, plain ticks (``log_ticks`` of ``values``)."""
     spec: dict[str, Any] = {
         "title": {"text": title},
         "gridcolor": GRID,
@@ -88,7 +112,10 @@ def axis(title: str, *, log: bool = False, **extra: Any) -> dict[str, Any]:
         "automargin": True,
     }
     if log:
-        spec.update({"type": "log", "nticks": 5, "tickformat": "~g"})
+        spec.update({"type": "log", "nticks": MOST_TICKS, "tickformat": "~g"})
+        ticks = log_ticks(values) if values is not None else []
+        if ticks:
+            spec.update({"tickmode": "array", "tickvals": ticks})
     spec.update(extra)
     return spec
 
