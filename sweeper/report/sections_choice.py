@@ -25,7 +25,12 @@ from sweeper.store import trial_words as words
 
 @dataclass(frozen=True)
 class Chosen:
-    """The configuration to use: its score over ``seeds`` training runs."""
+    """The configuration to use: its score over ``seeds`` training runs.
+
+    A confirmed choice maps onto it field by field: its params, its mean as ``value``, its
+    standard deviation as ``spread``, the number of its seeds, the runners-up it cannot be
+    told apart from, and its confirmed flag.
+    """
 
     trial: int
     params: dict[str, Any]
