@@ -161,6 +161,15 @@ class Refit:
     def baseline(self) -> Baseline:
         return self.refit.baseline()
 
+    def held_out_outputs(self) -> torch.Tensor:
+        """The final model's outputs on the held-out sequences (dropout off)."""
+        data, model = self.refit.data("valid"), self.run.model
+        model.eval()
+        with torch.no_grad():
+            outputs, _ = model(data.inputs, model.initial_state(len(data)))
+        model.train()
+        return outputs
+
 
 def refit_best(
     study: optuna.Study, spec: Spec, on_epoch: Callable[[EpochRecord], None] | None = None
@@ -197,11 +206,7 @@ def forecast_lines(result: Refit) -> list[str]:
     task, refit = result.task, result.refit
     if not forecast_scores.is_forecast(task):
         return []
-    data = refit.data("valid")
-    model = result.run.model
-    model.eval()
-    with torch.no_grad():
-        outputs, _ = model(data.inputs, model.initial_state(len(data)))
+    outputs = result.held_out_outputs()
     lines = forecast_scores.comparison_lines(task, outputs, refit.held_out)  # type: ignore[arg-type]
     return [f"# {line}" for line in lines]
 

@@ -21,6 +21,7 @@ import numpy as np
 import torch
 
 from sweeper.tasks import forecast_baselines as fb
+from sweeper.tasks.season import suggest_season
 
 if TYPE_CHECKING:
     from sweeper.tasks.base import Split
@@ -147,3 +148,20 @@ def comparison_lines(task: SeriesTask, outputs: torch.Tensor | None, split: Spli
     if outputs is not None:
         lines.append(f"model: {model_scores(task, outputs, split).text()}")
     return lines + baselines.lines()
+
+
+def check_lines(task: SeriesTask) -> list[str]:
+    """What ``sweeper check`` adds for a series: the scoring, the season, the baselines."""
+    options = task.options
+    modelled = f"{options.predict}{' of the log' if options.log else ''}"
+    lines = [
+        f"predicts the {modelled} {task.horizon} row(s) ahead, fill {options.fill}; training "
+        f"windows start every {task.stride} rows; held-out rows scored once each",
+    ]
+    if task.season is None:
+        guess = suggest_season(task.levels[: task.train_rows, 0])
+        hint = f"the autocorrelation suggests season = {guess}" if guess else "none is evident"
+        lines.append(f"season not set ({hint}); seasonal naive and Holt-Winters need one")
+    elif fb.statsmodels_missing():
+        lines.append(f"Holt-Winters needs statsmodels: {INSTALL}")
+    return lines + comparison_lines(task, None, "valid")

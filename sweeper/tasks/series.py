@@ -133,6 +133,7 @@ class SeriesTask(CachedTask):
         self.train_rows = self.valid_end - round(len(raw_inputs) * options.valid_fraction)
         self.splits = ("train", "valid", "test") if self.test_rows else ("train", "valid")
         self._check_split_sizes(source)
+        self._check_targets_are_inputs(source)
         if options.log:
             check_positive(self.levels, self.target, source)
         self.z = self.transform.to_model(self.levels)
@@ -162,6 +163,17 @@ class SeriesTask(CachedTask):
             if name in self.target:
                 out[:, c] = self.transform.inputs(self.z[:, self.target.index(name)])
         return out
+
+    def _check_targets_are_inputs(self, source: str) -> None:
+        """Adding a change back (and a saved model's forecast) needs each target's level."""
+        absent = [name for name in self.target if name not in self.columns]
+        if absent and (self.options.predict == "change" or self.options.log):
+            raise SpecError(
+                source,
+                "task.target",
+                f"{', '.join(map(repr, absent))} must also be among columns when forecasting "
+                "the change or the log; add it to columns",
+            )
 
     def _check_split_sizes(self, source: str) -> None:
         need = self.options.window + self.options.horizon
