@@ -8,7 +8,9 @@ Athanasopoulos, Forecasting: Principles and Practice (3rd ed.), section 5.2 and 
 
 from __future__ import annotations
 
+import importlib.util
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -30,11 +32,8 @@ def drift(y: np.ndarray, origins: np.ndarray, h: int) -> np.ndarray:
 
 
 def statsmodels_missing() -> bool:
-    try:
-        import statsmodels.tsa.holtwinters  # noqa: F401
-    except ImportError:
-        return True
-    return False
+    """Whether the optional statsmodels is absent (looked up without importing it)."""
+    return importlib.util.find_spec("statsmodels") is None
 
 
 @dataclass(frozen=True)
@@ -93,7 +92,11 @@ def fit_holt_winters(y: np.ndarray, m: int) -> HoltWinters:
     fit = ExponentialSmoothing(
         y, trend="add", seasonal="add", seasonal_periods=m, initialization_method="estimated"
     ).fit()
-    p = fit.params
+    return from_params(fit.params)
+
+
+def from_params(p: dict[str, Any]) -> HoltWinters:
+    """The model of a statsmodels fit's ``params``."""
     return HoltWinters(
         float(p["smoothing_level"]),
         float(p["smoothing_trend"]),

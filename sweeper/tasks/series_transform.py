@@ -68,6 +68,6 @@ def check_positive(values: np.ndarray, names: tuple[str, ...], source: str) -> N
             raise SpecError(
                 source,
                 "task.log",
-                f"column {name!r} has {values[bad[0], c]!r} at row {bad[0] + 1}; a log "
+                f"column {name!r} has {float(values[bad[0], c])!r} at row {bad[0] + 1}; a log "
                 "transform needs every value above 0 (set log = false)",
             )

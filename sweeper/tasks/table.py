@@ -25,13 +25,12 @@ class Table:
     lines: tuple[int, ...]
 
     def numeric_columns(self) -> tuple[str, ...]:
-        """Columns whose first cell is a number (a timestamp column is left out)."""
-        first = self.rows[0]
-        return tuple(
-            name
-            for name, cell in zip(self.columns, first, strict=True)
-            if _number(cell) is not None
-        )
+        """Columns whose first non-empty cell is a number (a timestamp column is left out)."""
+        return tuple(name for i, name in enumerate(self.columns) if self._numeric(i))
+
+    def _numeric(self, i: int) -> bool:
+        first = next((row[i] for row in self.rows if row[i]), "")
+        return _number(first) is not None
 
     def values(
         self, names: tuple[str, ...], source: str, key: str, missing: bool = False
