@@ -155,3 +155,16 @@ def test_bad_forecast_options(tmp_path: Path, options: dict, key: str, part: str
     with pytest.raises(SpecError) as caught:
         series(tmp_path, window=4, **options)
     assert caught.value.key == key and part in caught.value.message
+
+
+def test_without_statsmodels_holt_winters_says_how_to_install_it(tmp_path, monkeypatch) -> None:
+    write(tmp_path, {"level": trend_season(200)})
+    task = series(tmp_path, window=24, season=12)
+    monkeypatch.setattr(forecast_scores.fb, "statsmodels_missing", lambda: True)
+    found = forecast_scores.baseline_scores(task, "valid")
+    assert found.missing == {"Holt-Winters": "statsmodels is not installed; " + INSTALL}
+    assert set(found.scores) == {"persistence", "seasonal naive", "drift"}
+    assert "Holt-Winters needs statsmodels: " + INSTALL in forecast_scores.check_lines(task)
+
+
+INSTALL = "pip install 'sweeper[forecast]'"
