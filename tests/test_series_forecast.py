@@ -168,3 +168,18 @@ def test_without_statsmodels_holt_winters_says_how_to_install_it(tmp_path, monke
 
 
 INSTALL = "pip install 'sweeper[forecast]'"
+
+
+def test_a_recorded_scaled_loss_converts_to_data_units(tmp_path: Path) -> None:
+    # the scaled MSE of any outputs, times the target's training variance, is their
+    # data-unit MSE (change forecasts: the level error is the change error)
+    write(tmp_path, {"level": trend_season(200)})
+    task = series(tmp_path, window=24, predict="change")
+    outputs = torch.from_numpy(
+        np.random.default_rng(4).normal(size=(task.data("valid").targets.shape))
+    )
+    scaled = task.metric(outputs, task.data("valid"))
+    expected = forecast_scores.model_scores(task, outputs, "valid").mse
+    assert forecast_scores.data_mse(task, scaled) == pytest.approx(expected, rel=1e-6)
+    logged = series(tmp_path, window=24, predict="change", log=True)
+    assert forecast_scores.data_mse(logged, scaled) is None

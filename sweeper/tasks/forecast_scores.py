@@ -165,3 +165,12 @@ def check_lines(task: SeriesTask) -> list[str]:
     elif fb.statsmodels_missing():
         lines.append(f"Holt-Winters needs statsmodels: {INSTALL}")
     return lines + comparison_lines(task, None, "valid")
+
+
+def data_mse(task: SeriesTask, scaled_mse: float) -> float | None:
+    """A recorded scaled MSE (a trial's valid_loss) in data units, where that is exact: one
+    target column and no log (a change forecast's error is then its level forecast's
+    error). None otherwise; data-unit scores then need the model's outputs."""
+    if task.options.log or task.output_size != 1:
+        return None
+    return float(scaled_mse * task.target_scaling.std[0] ** 2)
