@@ -4,8 +4,9 @@
     python benchmarks/forecast_real_series.py --quick   # 2 trials of 2 epochs each
 
 The series ship with statsmodels: ``co2`` (weekly CO2 at Mauna Loa, 1958-2001, a trend and
-a yearly season; 59 missing weeks, filled linearly) and ``elnino`` (monthly sea surface
-temperature, 1950-2010, a yearly season). Each is exported to CSV, swept by `sweeper run`
+a yearly season; 59 missing weeks, filled linearly), ``elnino`` (monthly sea surface
+temperature, 1950-2010, a yearly season) and ``sunspots`` (yearly sunspot numbers,
+1700-2008, a cycle of about 11 years). Each is exported to CSV, swept by `sweeper run`
 with ``predict = "change"``, and its best configuration retrained by `sweeper best --retrain
 --save`; the saved model's info holds the final model's and every baseline's scores on the
 test rows in data units. Wall time counts both commands.
@@ -33,6 +34,7 @@ seed = 3
 [task]
 kind = "series"
 file = "{name}.csv"
+columns = ["{column}"]
 horizon = 1
 window = {window}
 stride = {stride}
@@ -55,15 +57,34 @@ lr = {{ between = [0.001, 0.02], scale = "log" }}
 """
 
 SERIES = {
-    "co2": {"window": 104, "stride": 8, "season": 52, "unrolls": [13, 26, 52, 104]},
-    "elnino": {"window": 48, "stride": 4, "season": 12, "unrolls": [12, 24, 48]},
+    "co2": {
+        "column": "co2",
+        "window": 104,
+        "stride": 8,
+        "season": 52,
+        "unrolls": [13, 26, 52, 104],
+    },
+    "elnino": {
+        "column": "temperature",
+        "window": 48,
+        "stride": 4,
+        "season": 12,
+        "unrolls": [12, 24, 48],
+    },
+    "sunspots": {
+        "column": "activity",
+        "window": 44,
+        "stride": 2,
+        "season": 11,
+        "unrolls": [11, 22, 44],
+    },
 }
 NAMES = ("persistence", "seasonal naive", "drift", "Holt-Winters")
 HOLT_WINTERS_SLACK = 1.10  # the model's test MSE at most 10% above Holt-Winters'
 
 
 def export(folder: Path) -> None:
-    from statsmodels.datasets import co2, elnino
+    from statsmodels.datasets import co2, elnino, sunspots
 
     weeks = co2.load_pandas().data["co2"]
     rows = [f"{stamp.date()},{'' if np.isnan(v) else repr(float(v))}" for stamp, v in weeks.items()]
@@ -76,6 +97,13 @@ def export(folder: Path) -> None:
     ]
     text = "month,temperature\n" + "\n".join(months) + "\n"
     (folder / "elnino.csv").write_text(text, encoding="utf-8")
+    years = sunspots.load_pandas().data
+    rows = [
+        f"{int(y)},{float(v)!r}" for y, v in zip(years["YEAR"], years["SUNACTIVITY"], strict=True)
+    ]
+    (folder / "sunspots.csv").write_text(
+        "year,activity\n" + "\n".join(rows) + "\n", encoding="utf-8"
+    )
 
 
 def sweep(folder: Path, name: str, epochs: int, trials: int | None) -> tuple[float, dict]:

@@ -46,6 +46,7 @@ EXPECTED = {
         "Holt-Winters",
         "co2_mse_over_holt_winters",
         "elnino_mse_over_seasonal_naive",
+        "sunspots_mse_over_persistence",
     ],
 }
 
