@@ -26,8 +26,6 @@ from measure import machine_line, print_table, timed_subprocess
 SPEC = """
 [study]
 name = "{name}"
-goal = "minimize"
-objective = "valid_loss"
 workers = 2
 seed = 3
 
