@@ -108,7 +108,9 @@ def _series_inputs(x: torch.Tensor, info: dict[str, Any]) -> torch.Tensor:
     z = x[..., columns]
     if info.get("log"):
         z = torch.log(z)
-    if info.get("predict") == "change" and z.shape[-2] > 1:
+    if info.get("predict") == "change":
+        if z.shape[-2] < 2:
+            raise ValueError("a model that forecasts the change needs at least two steps")
         steps = z[..., 1:, :] - z[..., :-1, :]
         z = torch.cat([steps[..., :1, :], steps], dim=-2)
     x[..., columns] = z
