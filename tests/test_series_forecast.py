@@ -183,3 +183,19 @@ def test_a_recorded_scaled_loss_converts_to_data_units(tmp_path: Path) -> None:
     assert forecast_scores.data_mse(task, scaled) == pytest.approx(expected, rel=1e-6)
     logged = series(tmp_path, window=24, predict="change", log=True)
     assert forecast_scores.data_mse(logged, scaled) is None
+
+
+def test_summary_reads_the_baselines_of_each_held_out_split(tmp_path: Path) -> None:
+    write(tmp_path, {"level": trend_season(200)})
+    task = series(tmp_path, window=24, test_fraction=0.2)
+    found = forecast_scores.summary_baselines(task)
+    assert set(found) == {"valid", "test"}
+    assert found["test"].rows == 40 and found["test"].missing == {
+        "seasonal naive": "set season",
+        "Holt-Winters": "set season",
+    }
+    # persistence in data units: the mean squared one-row change over the test rows
+    level = task.levels[:, 0]
+    expected = float(np.mean((level[160:] - level[159:-1]) ** 2))
+    assert found["test"].scores["persistence"].mse == pytest.approx(expected)
+    assert forecast_scores.summary_baselines(build_task({"kind": "adding"}, tmp_path, "x")) == {}

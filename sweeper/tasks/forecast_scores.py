@@ -7,8 +7,10 @@ forecast on the training rows (Hyndman & Koehler 2006; Hyndman & Athanasopoulos,
 or of the naive one-row-back forecast when the task has no season. MASE below 1 beats that
 in-sample naive forecast.
 
-``baseline_scores(task, split)`` is what the summary, ``check``, ``best --retrain`` and the
-saved model show; it is plain data (``SplitBaselines``), computed from the task alone.
+``baseline_scores(task, split)`` is what ``check``, ``best --retrain`` and the saved model
+show; it is plain data (``SplitBaselines``), computed from the task alone. The summary reads
+``summary_baselines(task)`` (every held-out split) of the spec's task, and converts a
+recorded scaled loss with ``data_mse`` where that is exact.
 """
 
 from __future__ import annotations
@@ -174,3 +176,12 @@ def data_mse(task: SeriesTask, scaled_mse: float) -> float | None:
     if task.options.log or task.output_size != 1:
         return None
     return float(scaled_mse * task.target_scaling.std[0] ** 2)
+
+
+def summary_baselines(task: object) -> dict[str, SplitBaselines]:
+    """For the summary: the baselines on each held-out split of a series task, by split
+    name ("valid", and "test" where the task holds one out); empty for any other task."""
+    if not is_forecast(task):
+        return {}
+    series: SeriesTask = task  # type: ignore[assignment]
+    return {split: baseline_scores(series, split) for split in series.splits if split != "train"}
