@@ -78,6 +78,19 @@ def test_gradients_match_torch_autograd_through_torchs_module(
         _assert_relative(got, want, dtype)
 
 
+@pytest.mark.parametrize("cell", PAIRS)
+def test_without_a_gradient_the_outputs_are_the_same(cell: str) -> None:
+    # the validation pass runs under no_grad, where GRU reuses one step buffer
+    ours, theirs = _pair(cell, torch.float64)
+    x, h = _inputs(torch.float64)
+    with torch.no_grad():
+        out, state = ours(x, h)
+        want_out, want_state = theirs(x, h)
+    assert not out.requires_grad
+    _assert_relative(out, want_out, torch.float64)
+    _assert_relative(state, want_state, torch.float64)
+
+
 @pytest.mark.parametrize("window", [ElmanWindow, GRUWindow])
 def test_hand_written_backward_passes_gradcheck(window: type[torch.autograd.Function]) -> None:
     gates = 3 if window is GRUWindow else 1

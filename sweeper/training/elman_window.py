@@ -15,9 +15,16 @@ from typing import Any
 import torch
 from torch.autograd.function import once_differentiable
 
-from sweeper.training.window_grads import window_grads
+from sweeper.training.window_grads import input_grads, recurrent_grads
 
 Tensor = torch.Tensor
+
+
+def elman_window(
+    x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
+) -> tuple[Tensor, Tensor]:
+    """The layer over the window (without a gradient it only costs the forward)."""
+    return ElmanWindow.apply(x, h0, w_ih, w_hh, b_ih, b_hh)
 
 
 class ElmanWindow(torch.autograd.Function):
@@ -44,13 +51,16 @@ class ElmanWindow(torch.autograd.Function):
         x, h0, w_ih, w_hh, out = ctx.saved_tensors
         steps = x.shape[0]
         # tanh' = 1 - h^2 for the whole window; the output gradients enter scaled by it at once
-        slope = 1 - out.square()
+        slope = torch.mul(out, out).neg_().add_(1)
         d_pre = torch.mul(d_out, slope, out=torch.empty_like(out))  # time-first, contiguous
         steps_back = d_pre.unbind(0)
         slopes = slope.unbind(0)
         steps_back[-1].addcmul_(d_last, slopes[-1])
         for t in range(steps - 1, 0, -1):
             steps_back[t - 1].addcmul_(torch.mm(steps_back[t], w_hh), slopes[t - 1])
+        del slope, slopes
         carry = torch.mm(steps_back[0], w_hh)
-        previous = torch.cat((h0.unsqueeze(0), out[:-1]))
-        return window_grads(ctx.needs_input_grad, x, previous, d_pre, d_pre, w_ih, carry)
+        need = ctx.needs_input_grad
+        d_w_hh, d_b_hh = recurrent_grads(need, h0, out, d_pre)
+        d_x, d_w_ih, d_b_ih = input_grads(need, x, d_pre, w_ih)
+        return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh

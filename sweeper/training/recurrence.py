@@ -3,9 +3,9 @@
 ``WindowRNN`` and ``WindowGRU`` are torch's modules, same parameters, names and gate order, so
 a state dict moves freely between them and torch's own; only ``forward`` differs. For
 batch-first [B, T, F] inputs with a state they run each layer as one autograd node
-(``ElmanWindow`` / ``GRUWindow``), with torch's dropout between layers on the time-first
-layer outputs, as torch's own stack applies it. Anything else (unbatched inputs, relu,
-bidirectional, no state) goes to torch's own forward.
+(``ElmanWindow`` / ``GRUWindow``; without a gradient, GRU keeps no per-step buffers), with
+torch's dropout between layers on the time-first layer outputs, as torch's own stack applies
+it. Anything else (unbatched inputs, relu, bidirectional, no state) goes to torch's forward.
 
 ``SWEEPER_RECURRENCE=torch`` in the environment makes the built-in models use torch's
 modules instead; the benchmarks use it to time the old path against the new.
@@ -14,12 +14,13 @@ modules instead; the benchmarks use it to time the old path against the new.
 from __future__ import annotations
 
 import os
+from collections.abc import Callable
 
 import torch
 from torch import nn
 
-from sweeper.training.elman_window import ElmanWindow
-from sweeper.training.gru_window import GRUWindow
+from sweeper.training.elman_window import elman_window
+from sweeper.training.gru_window import gru_window
 
 SWITCH = "SWEEPER_RECURRENCE"
 # one layer's parameters, nn.RNNBase's names (suffixed _l0, _l1, ...)
@@ -44,7 +45,10 @@ def handled(module: nn.RNNBase, x: torch.Tensor) -> bool:
 
 
 def run_layers(
-    module: nn.RNNBase, window: type[torch.autograd.Function], x: torch.Tensor, state: torch.Tensor
+    module: nn.RNNBase,
+    window: Callable[..., tuple[torch.Tensor, torch.Tensor]],
+    x: torch.Tensor,
+    state: torch.Tensor,
 ) -> tuple[torch.Tensor, torch.Tensor]:
     """The layer stack over batch-first ``x`` from ``state`` [layers, B, H], one node a layer."""
     layer_input = x.transpose(0, 1)
@@ -53,7 +57,7 @@ def run_layers(
         if layer and module.dropout and module.training:
             layer_input = torch.dropout(layer_input, module.dropout, True)
         weights = [getattr(module, f"{name}_l{layer}") for name in _NAMES]
-        layer_input, h = window.apply(layer_input, state[layer], *weights)
+        layer_input, h = window(layer_input, state[layer], *weights)
         last.append(h)
     return layer_input.transpose(0, 1), torch.stack(last)
 
@@ -66,7 +70,7 @@ class WindowRNN(nn.RNN):
     ) -> tuple[torch.Tensor, torch.Tensor]:
         if hx is None or not handled(self, x):
             return super().forward(x, hx)
-        return run_layers(self, ElmanWindow, x, hx)
+        return run_layers(self, elman_window, x, hx)
 
 
 class WindowGRU(nn.GRU):
@@ -77,4 +81,4 @@ class WindowGRU(nn.GRU):
     ) -> tuple[torch.Tensor, torch.Tensor]:
         if hx is None or not handled(self, x):
             return super().forward(x, hx)
-        return run_layers(self, GRUWindow, x, hx)
+        return run_layers(self, gru_window, x, hx)

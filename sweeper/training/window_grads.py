@@ -15,27 +15,31 @@ import torch
 Tensor = torch.Tensor
 
 
-def window_grads(
-    need: Sequence[bool],
-    x: Tensor,
-    previous: Tensor,
-    d_input: Tensor,
-    d_recurrent: Tensor,
-    w_ih: Tensor,
-    d_h0: Tensor,
-) -> tuple[Tensor | None, ...]:
-    """Gradients for ``(x, h0, w_ih, w_hh, b_ih, b_hh)``, None where ``need`` says so.
+def recurrent_grads(
+    need: Sequence[bool], h0: Tensor, out: Tensor, d_rec: Tensor
+) -> tuple[Tensor | None, Tensor | None]:
+    """``(d W_hh, d b_hh)`` from the recurrent products' gradients ``d_rec`` [T, B, G*H].
 
-    ``previous`` [T, B, H] is the state each step started from; ``d_input`` and
-    ``d_recurrent`` [T, B, G*H] are the gradients of the input and recurrent products.
+    Step t started from ``out[t - 1]`` (``h0`` for the first), so the product is split in
+    two rather than copying the window's previous states into one tensor.
     """
+    hidden = out.shape[-1]
+    d_w_hh = None
+    if need[3]:
+        later = d_rec[1:].reshape(-1, d_rec.shape[-1])
+        d_w_hh = torch.mm(d_rec[0].t(), h0)
+        d_w_hh.addmm_(later.t(), out[:-1].reshape(-1, hidden))
+    d_b_hh = d_rec.sum((0, 1)) if need[5] else None
+    return d_w_hh, d_b_hh
+
+
+def input_grads(
+    need: Sequence[bool], x: Tensor, d_in: Tensor, w_ih: Tensor
+) -> tuple[Tensor | None, Tensor | None, Tensor | None]:
+    """``(d x, d W_ih, d b_ih)`` from the input products' gradients ``d_in`` [T, B, G*H]."""
     steps, batch, features = x.shape
-    rows = steps * batch
-    d_in = d_input.reshape(rows, -1)
-    d_rec = d_recurrent.reshape(rows, -1)
-    d_x = torch.mm(d_in, w_ih).view(steps, batch, features) if need[0] else None
-    d_w_ih = torch.mm(d_in.t(), x.reshape(rows, features)) if need[2] else None
-    d_w_hh = torch.mm(d_rec.t(), previous.reshape(rows, -1)) if need[3] else None
-    d_b_ih = d_in.sum(0) if need[4] else None
-    d_b_hh = d_rec.sum(0) if need[5] else None
-    return d_x, d_h0 if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh
+    flat = d_in.reshape(steps * batch, -1)
+    d_x = torch.mm(flat, w_ih).view(steps, batch, features) if need[0] else None
+    d_w_ih = torch.mm(flat.t(), x.reshape(steps * batch, features)) if need[2] else None
+    d_b_ih = flat.sum(0) if need[4] else None
+    return d_x, d_w_ih, d_b_ih
