@@ -1,7 +1,7 @@
 """Achieved GFLOP/s of the trainer's training step, as a share of one core's sgemm rate.
 
     python benchmarks/trainer_flops.py             # widths 16-256, 5 rounds, sweep, memory
-    python benchmarks/trainer_flops.py --quick     # widths 32 and 256, less work, one round
+    python benchmarks/trainer_flops.py --quick     # widths 32/128/256, less work, one round
     python benchmarks/trainer_flops.py --batch 128 --no-sweep
 
 FLOPs counted per sequence, step and layer: the forward pass multiplies the input and the
@@ -199,7 +199,7 @@ def sweep_seconds(folder: Path, path: str, quick: bool) -> tuple[float, list[str
     return wall, [f"{name}={value:.6g}" for _, name, value in params], int(epochs)
 
 
-def memory_mib(cell: str, path: str, repeats: int = 3) -> tuple[float, float]:
+def memory_mib(cell: str, path: str, repeats: int) -> tuple[float, float]:
     """Peak RSS growth over a width-256, unroll-100 epoch (median of fresh child processes)
     and the MiB one window's autograd graph holds."""
     args = [sys.executable, __file__, "--memory-child", cell]
@@ -254,7 +254,7 @@ def _status_kib(key: str) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="widths 32 and 256, one round")
+    parser.add_argument("--quick", action="store_true", help="widths 32, 128, 256, one round")
     parser.add_argument("--batch", type=int, default=32)
     parser.add_argument("--rounds", type=int, default=5)
     parser.add_argument("--no-sweep", action="store_true", help="skip the sweep and memory")
@@ -265,7 +265,7 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     widths, work, rounds = (16, 32, 64, 128, 256), 2e9, args.rounds
     if args.quick:
-        widths, work, rounds = (32, 256), 2e8, 1
+        widths, work, rounds = (32, 128, 256), 2e8, 1
     print(machine_line())
     print(f"load before: {os.getloadavg()[0]:.1f}")
     previous = torch.get_num_threads()
@@ -282,15 +282,18 @@ def main(argv: list[str] | None = None) -> int:
         peak = sgemm_rate()
     finally:
         torch.set_num_threads(previous)
-    report(rows, peak, args.batch)
+    figures = report(rows, peak, args.batch)
     if not args.no_sweep:
-        report_sweep(args.quick)
-        report_memory()
+        figures += report_sweep(args.quick)
+        figures += report_memory(repeats=1 if args.quick else 3)
     print(f"load after: {os.getloadavg()[0]:.1f}")
+    print()
+    print("\n".join(figures))
     return 0
 
 
-def report(rows: list[tuple], peak: float, batch: int) -> None:
+def report(rows: list[tuple], peak: float, batch: int) -> list[str]:
+    """Prints the table; returns the figure lines."""
     print(f"batch {batch}, unroll {UNROLL} x {WINDOWS} windows, {INPUTS} inputs, 1 thread")
     print(
         f"sgemm 2048x2048 on one thread: {peak:.1f} GFLOP/s (at the end; shares use each round's)"
@@ -298,23 +301,24 @@ def report(rows: list[tuple], peak: float, batch: int) -> None:
     headers = ("cell", "hidden", "trainer GFLOP/s", "share of sgemm", "torch's share")
     headers += ("ours / torch", "bare loop share", "trainer / bare")
     print_table(headers, [(*row, row[3] / row[6]) for row in rows])
-    print()
+    figures = []
     for cell, hidden, _, share, torch_share, *_ in rows:
         target = TARGETS.get((cell, hidden))
         if target is not None:
-            print(f"sgemm_share_{cell}_{hidden} {share:.3f} (target >= {target})")
+            figures.append(f"sgemm_share_{cell}_{hidden} {share:.3f} (target >= {target})")
         factor = GAIN_TARGETS.get((cell, hidden))
         if factor is not None:
-            print(
+            figures.append(
                 f"sgemm_share_{cell}_{hidden} {share:.3f} (torch's module {torch_share:.3f} in "
                 f"the same run, {share / torch_share:.2f}x; target >= {factor}x)"
             )
     gains = [(row[5], row[0], row[1]) for row in rows if row[0] in OURS]
     slowest, cell, hidden = min(gains)
-    print(f"slowest_vs_torch {slowest:.3f} ({cell} {hidden}; target >= 1.0)")
+    figures.append(f"slowest_vs_torch {slowest:.3f} ({cell} {hidden}; target >= 1.0)")
+    return figures
 
 
-def report_sweep(quick: bool) -> None:
+def report_sweep(quick: bool) -> list[str]:
     with tempfile.TemporaryDirectory() as scratch:
         folder = Path(scratch)
         new, new_trials, new_epochs = sweep_seconds(folder, "ours", quick)
@@ -323,20 +327,24 @@ def report_sweep(quick: bool) -> None:
     print(f"{SWEEP_SPEC.name}, random sampler, 1 worker, 1 thread: ours {new:.1f} s")
     print(f"  ({new_epochs} epochs), torch's {old:.1f} s ({old_epochs} epochs), {same}")
     ratio = new / old
-    print(f"sweep_wall_ratio_gru_example {ratio:.3f} (target <= {SWEEP_TARGET})")
+    return [f"sweep_wall_ratio_gru_example {ratio:.3f} (target <= {SWEEP_TARGET})"]
 
 
-def report_memory() -> None:
+def report_memory(repeats: int) -> list[str]:
+    figures = []
     for cell in OURS:
         (ours, ours_saved), (theirs, theirs_saved) = (
-            memory_mib(cell, "ours"),
-            memory_mib(cell, "torch"),
+            memory_mib(cell, "ours", repeats),
+            memory_mib(cell, "torch", repeats),
         )
-        print(f"{cell} width 256, unroll 100, batch 32: peak RSS growth in an epoch (median of")
-        print(f"  3 processes) ours {ours:.1f} MiB, torch's {theirs:.1f} MiB; one window's graph")
-        print(f"  holds ours {ours_saved:.1f} MiB, torch's {theirs_saved:.1f} MiB")
-        print(f"peak_rss_ratio_{cell}_256 {ours / theirs:.3f} (target <= {MEMORY_TARGET})")
-        print(f"saved_activations_ratio_{cell}_256 {ours_saved / theirs_saved:.3f}")
+        print(f"{cell} width 256, unroll 100, batch 32: peak RSS growth in an epoch")
+        print(f"  (median of {repeats}) ours {ours:.1f} MiB, torch's {theirs:.1f} MiB;")
+        print(
+            f"  one window's graph holds ours {ours_saved:.1f} MiB, torch's {theirs_saved:.1f} MiB"
+        )
+        figures.append(f"peak_rss_ratio_{cell}_256 {ours / theirs:.3f} (target <= {MEMORY_TARGET})")
+        figures.append(f"saved_activations_ratio_{cell}_256 {ours_saved / theirs_saved:.3f}")
+    return figures
 
 
 if __name__ == "__main__":
