@@ -23,16 +23,19 @@ Elman and GRU run twice per round, in alternating order: with our window recurre
 
 Two more figures, each from child processes so that the two paths do not share a heap:
 - the sweep: search_spaces/copy_gru.toml with the random sampler (its draws do not depend on
-  the results, so both runs train the same trials), one worker on one thread, run by
-  ``sweeper run`` with our recurrence and with torch's; wall time new over old.
-- memory: the second epoch of a width-256 trial with unroll 100 (2 windows, batch 32); the
-  growth of the peak RSS (VmHWM, reset before the epoch) over the RSS right before it, ours
-  against torch's: what the window's stored activations and the backward's buffers add.
+  the results, so both runs train the same trials) and no stopping rule (so the same epochs),
+  one worker on one thread, run by ``sweeper run`` with our recurrence and with torch's;
+  wall time new over old.
+- memory: the second epoch of a width-256 trial with unroll 100 (2 windows, batch 32): the
+  growth of the peak RSS (VmHWM, reset before the epoch, after malloc_trim hands the freed
+  heap back) over the RSS right before it, ours against torch's; and the bytes one window's
+  autograd graph holds (saved-tensor hooks, weights and inputs excluded).
 """
 
 from __future__ import annotations
 
 import argparse
+import ctypes
 import os
 import sqlite3
 import subprocess
@@ -183,6 +186,9 @@ def sweep_seconds(folder: Path, path: str, quick: bool) -> tuple[float, list[str
     text = SWEEP_SPEC.read_text(encoding="utf-8")
     text = text.replace("[study]\n", '[study]\nsampler = "random"\n', 1)
     text = text.replace("[training]\n", "[training]\nthreads = 1\n", 1)
+    # no stopping rule: tiny numeric differences could stop different trials, and then the
+    # two runs would not train the same epochs
+    text += '\n[stopping]\nrule = "none"\n'
     if quick:
         text = text.replace("trials = 10", "trials = 2").replace("epochs = 8", "epochs = 1")
     spec = folder / f"{path}.toml"
@@ -220,6 +226,8 @@ def memory_child(cell: str) -> None:
     task = SyntheticTask(32, length=200)
     run = TrialRun(task, params, seed=1)
     run.run_epoch()  # first use: lazy imports, optimizer state, the allocator's pools
+    # hand the freed heap back first, so that the epoch's own buffers count (glibc)
+    ctypes.CDLL(None).malloc_trim(0)
     # writing 5 to clear_refs resets the peak (VmHWM) to the current RSS (Linux >= 4.0)
     Path("/proc/self/clear_refs").write_text("5")
     before = _status_kib("VmRSS")

@@ -91,14 +91,14 @@ class GRUWindow(torch.autograd.Function):
         # d_h[t]: the whole gradient reaching h_t, completed one step ahead of its use
         d_h = torch.add(d_out, 0, out=torch.empty_like(out))  # time-first, contiguous
         d_h[-1].add_(d_last)
-        d_rec = torch.empty_like(gates)
+        # each step's factors become its recurrent products' gradients in place (d_rec)
+        d_rec = factors.view(steps, batch, 3 * hidden)
         g, g3 = d_h.unbind(0), d_h.unsqueeze(2).unbind(0)
-        f3, z_s = factors.unbind(0), z.unbind(0)
-        rec, rec3 = d_rec.unbind(0), d_rec.view(steps, batch, 3, hidden).unbind(0)
+        rec, rec3, z_s = d_rec.unbind(0), factors.unbind(0), z.unbind(0)
         for t in range(steps - 1, 0, -1):
-            torch.mul(g3[t], f3[t], out=rec3[t])
+            rec3[t].mul_(g3[t])
             g[t - 1].addcmul_(g[t], z_s[t]).addmm_(rec[t], w_hh)
-        torch.mul(g3[0], f3[0], out=rec3[0])
+        rec3[0].mul_(g3[0])
         carry = torch.mm(rec[0], w_hh).addcmul_(g[0], z_s[0])
         need = ctx.needs_input_grad
         d_w_hh, d_b_hh = recurrent_grads(need, h0, out, d_rec)
