@@ -80,7 +80,7 @@ def test_gradients_match_torch_autograd_through_torchs_module(
 
 @pytest.mark.parametrize("cell", PAIRS)
 def test_without_a_gradient_the_outputs_are_the_same(cell: str) -> None:
-    # the validation pass runs under no_grad, where GRU reuses one step buffer
+    # the validation pass and windows without targets run under no_grad (GRU: torch's own loop)
     ours, theirs = _pair(cell, torch.float64)
     x, h = _inputs(torch.float64)
     with torch.no_grad():

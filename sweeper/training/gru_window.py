@@ -26,23 +26,11 @@ from sweeper.training.window_grads import input_grads, recurrent_grads
 Tensor = torch.Tensor
 
 
-def gru_window(
-    x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
-) -> tuple[Tensor, Tensor]:
-    """The layer over the window: through ``GRUWindow`` when a gradient is wanted."""
-    tensors = (x, h0, w_ih, w_hh, b_ih, b_hh)
-    if torch.is_grad_enabled() and any(t.requires_grad for t in tensors):
-        return GRUWindow.apply(*tensors)
-    out, h, _, _ = gru_steps(*tensors, keep=False)
-    return out, h
-
-
 def gru_steps(
-    x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor, keep: bool
+    x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
 ) -> tuple[Tensor, ...]:
     """Outputs, last state, gates [T, B, 3H] (r, z, n after their nonlinearities) and n's
-    recurrent products ``h W_hn^T + b_hn`` [T, B, H] (every step's if ``keep``, else one
-    buffer that each step overwrites)."""
+    recurrent products ``h W_hn^T + b_hn`` [T, B, H], every step's, for the backward."""
     steps, batch, features = x.shape
     hidden = h0.shape[-1]
     # input products of every step at once, r's and z's recurrent biases folded in; they
@@ -50,10 +38,7 @@ def gru_steps(
     bias = b_ih + torch.cat((b_hh[: 2 * hidden], b_hh.new_zeros(hidden)))
     gates = torch.addmm(bias, x.reshape(steps * batch, features), w_ih.t())
     gates = gates.view(steps, batch, 3 * hidden)
-    if keep:
-        products = gates.new_empty(steps, batch, hidden)
-    else:
-        products = gates.new_empty(1, batch, hidden).expand(steps, -1, -1)
+    products = gates.new_empty(steps, batch, hidden)
     out = gates.new_empty(steps, batch, hidden)
     w_rz, w_n = w_hh[: 2 * hidden].t(), w_hh[2 * hidden :].t()
     b_n = b_hh[2 * hidden :]
@@ -76,7 +61,7 @@ class GRUWindow(torch.autograd.Function):
     def forward(
         ctx: Any, x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
     ) -> tuple[Tensor, Tensor]:
-        out, h, gates, products = gru_steps(x, h0, w_ih, w_hh, b_ih, b_hh, keep=True)
+        out, h, gates, products = gru_steps(x, h0, w_ih, w_hh, b_ih, b_hh)
         ctx.save_for_backward(x, h0, w_ih, w_hh, gates, products, out)
         return out, h.clone()
 

@@ -3,9 +3,11 @@
 ``WindowRNN`` and ``WindowGRU`` are torch's modules, same parameters, names and gate order, so
 a state dict moves freely between them and torch's own; only ``forward`` differs. For
 batch-first [B, T, F] inputs with a state they run each layer as one autograd node
-(``ElmanWindow`` / ``GRUWindow``; without a gradient, GRU keeps no per-step buffers), with
-torch's dropout between layers on the time-first layer outputs, as torch's own stack applies
-it. Anything else (unbatched inputs, relu, bidirectional, no state) goes to torch's forward.
+(``ElmanWindow`` / ``GRUWindow``), with torch's dropout between layers on the time-first
+layer outputs, as torch's own stack applies it. Anything else (unbatched inputs, relu,
+bidirectional, no state) goes to torch's forward, and so does a GRU forward that records no
+gradient (evaluation, windows without targets): there torch's C++ step loop is quicker than
+our Python one, while for Elman ours is.
 
 ``SWEEPER_RECURRENCE=torch`` in the environment makes the built-in models use torch's
 modules instead; the benchmarks use it to time the old path against the new.
@@ -20,7 +22,7 @@ import torch
 from torch import nn
 
 from sweeper.training.elman_window import elman_window
-from sweeper.training.gru_window import gru_window
+from sweeper.training.gru_window import GRUWindow
 
 SWITCH = "SWEEPER_RECURRENCE"
 # one layer's parameters, nn.RNNBase's names (suffixed _l0, _l1, ...)
@@ -42,6 +44,14 @@ def handled(module: nn.RNNBase, x: torch.Tensor) -> bool:
         and module.bias
         and getattr(module, "nonlinearity", "tanh") == "tanh"
     )
+
+
+def recording(module: nn.RNNBase, x: torch.Tensor, state: torch.Tensor) -> bool:
+    """Whether autograd would record this forward (a gradient of an input or a weight)."""
+    if not torch.is_grad_enabled():
+        return False
+    weights = any(w.requires_grad for w in module.parameters())
+    return x.requires_grad or state.requires_grad or weights
 
 
 def run_layers(
@@ -79,6 +89,7 @@ class WindowGRU(nn.GRU):
     def forward(  # type: ignore[override]
         self, x: torch.Tensor, hx: torch.Tensor | None = None
     ) -> tuple[torch.Tensor, torch.Tensor]:
-        if hx is None or not handled(self, x):
+        # without a gradient to record, torch's C++ step loop is the quicker one for GRU
+        if hx is None or not handled(self, x) or not recording(self, x, hx):
             return super().forward(x, hx)
-        return run_layers(self, gru_window, x, hx)
+        return run_layers(self, GRUWindow.apply, x, hx)
