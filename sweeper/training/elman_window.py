@@ -20,13 +20,6 @@ from sweeper.training.window_grads import input_grads, recurrent_grads
 Tensor = torch.Tensor
 
 
-def elman_window(
-    x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
-) -> tuple[Tensor, Tensor]:
-    """The layer over the window (without a gradient it only costs the forward)."""
-    return ElmanWindow.apply(x, h0, w_ih, w_hh, b_ih, b_hh)
-
-
 class ElmanWindow(torch.autograd.Function):
     """``apply(x, h0, w_ih, w_hh, b_ih, b_hh) -> (outputs, last state)``."""
 

@@ -8,10 +8,11 @@ order (reset r, update z, new n) are nn.GRU's own (torch docs):
     n = tanh(x W_in^T + b_in + r * (h W_hn^T + b_hn))
     h' = (1 - z) * n + z * h
 
-The window's input products are one matrix product; a step is one recurrent product and five
-in-place gate operations, nothing recorded. The backward precomputes every factor that does
-not depend on the incoming gradient for the whole window, so a reverse step is one product
-and three elementwise operations; the weight gradients are one product each over the window.
+The window's input products are one matrix product; a step is two recurrent products (r and
+z together, then n) and four in-place gate operations, nothing recorded. The backward
+precomputes every factor that does not depend on the incoming gradient for the whole window,
+so a reverse step is one product and two elementwise operations; the weight gradients are one
+product each over the window.
 """
 
 from __future__ import annotations

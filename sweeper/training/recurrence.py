@@ -21,7 +21,7 @@ from collections.abc import Callable
 import torch
 from torch import nn
 
-from sweeper.training.elman_window import elman_window
+from sweeper.training.elman_window import ElmanWindow
 from sweeper.training.gru_window import GRUWindow
 
 SWITCH = "SWEEPER_RECURRENCE"
@@ -80,7 +80,7 @@ class WindowRNN(nn.RNN):
     ) -> tuple[torch.Tensor, torch.Tensor]:
         if hx is None or not handled(self, x):
             return super().forward(x, hx)
-        return run_layers(self, elman_window, x, hx)
+        return run_layers(self, ElmanWindow.apply, x, hx)
 
 
 class WindowGRU(nn.GRU):
