@@ -58,6 +58,7 @@ class StudySummary:
     workers_planned: int | None
     spec_text: str
     spec_hash: str
+    spec_source: str = ""  # the spec file's absolute path: relative data paths start there
 
 
 @dataclass(frozen=True)
@@ -214,6 +215,7 @@ def _summary(
         workers_planned=info.workers,
         spec_text=_text(info.spec_text),
         spec_hash=_text(info.spec_hash),
+        spec_source=info.spec_source,
     )
 
 

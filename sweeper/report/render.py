@@ -26,6 +26,7 @@ from sweeper.report.sections_search import (
     memory_section,
     search_section,
 )
+from sweeper.report.series_baselines import series_baselines
 from sweeper.results.summary_stamp import SummaryStamp, now_utc
 from sweeper.store.faults import page_disk_full
 
@@ -87,8 +88,9 @@ def render_page(tables: StudyTables, *, replicates: int = REPLICATES, seed: int 
     stamp = summary_stamp(tables)
     book = FigureBook()
     result = param_importance(tables, replicates=replicates, seed=seed)
+    chosen = chosen_from_trials(tables)
     sections = [
-        choice_section(tables, chosen_from_trials(tables), baselines_of(tables)),
+        choice_section(tables, chosen, baselines_of(tables) + series_baselines(tables, chosen)),
         stability_section(tables, book),
         memory_section(tables, book),
         cost_section(tables, book),

@@ -50,6 +50,7 @@ class NamedBaseline:
     value: float
     measure: str
     description: str = ""
+    chosen_value: float | None = None  # the chosen's score in this measure, where not stored
 
 
 def chosen_from_trials(tables: StudyTables) -> Chosen | None:
@@ -140,6 +141,8 @@ def _baselines(tables: StudyTables, chosen: Chosen, baselines: Sequence[NamedBas
     rows = []
     for base in baselines:
         measured, lower_better = _measured(tables, chosen, base.measure)
+        if base.chosen_value is not None:
+            measured, lower_better = base.chosen_value, True
         rows.append(
             [
                 base.name,
