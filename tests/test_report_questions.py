@@ -35,6 +35,8 @@ def _tables(spec_text: str = "", trials: list | None = None):
         ('kind = "recall"', 10),  # RecallOptions' own default delay
         ('kind = "copy"', 100),  # CopyOptions' default, the T of the copy task
         ('kind = "adding"\nlength = 50', None),  # no single dependency length
+        ('kind = "series"\nfile = "a.csv"\nseason = 52', 52),  # a weekly series' year
+        ('kind = "series"\nfile = "a.csv"', None),  # no season set
     ],
 )
 def test_the_dependency_length_comes_from_the_stored_spec(task: str, steps: int | None) -> None:

@@ -21,15 +21,21 @@ class Dependency:
 
 
 def dependency_length(summary: StudySummary) -> Dependency | None:
-    """How far back the task's target reaches (the ``delay`` of recall and copy), if known."""
+    """How far back the task's target reaches (the ``delay`` of recall and copy, the
+    ``season`` a series spec sets), if known."""
     try:
         task = tomllib.loads(summary.spec_text).get("task", {})
     except tomllib.TOMLDecodeError:
         return None
+    season = task.get("season")
+    if task.get("kind") == "series" and _steps(season):
+        return Dependency(season, "season")
     options = DELAYED.get(str(task.get("kind", "")))
     if options is None:
         return None
     delay = task.get("delay", getattr(options, "delay", None))
-    if isinstance(delay, bool) or not isinstance(delay, int):
-        return None
-    return Dependency(delay, "delay")
+    return Dependency(delay, "delay") if _steps(delay) else None
+
+
+def _steps(value: object) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool) and value >= 1
