@@ -75,7 +75,8 @@ def test_fragment_is_toml_with_the_best_trials_training_parameters(in_tmp: Path)
     best = study.best_trial
     first = result.output.splitlines()[0]
     assert first == (
-        f"# best of 'tiny': trial {best.number}, valid_loss {best.value!r} after 2 epochs, "
+        f"# best of 'tiny': trial {best.number}, valid_loss {best.value!r} "
+        f"at its best epoch, {best.user_attrs['score_epoch']} of 2, "
         f"seed {best.user_attrs['seed']}"
     )
     table = tomllib.loads(result.output)["training"]
