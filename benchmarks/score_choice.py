@@ -46,7 +46,7 @@ sys.path.insert(0, str(REPO))
 
 from sweeper.seeds import trial_seed
 from sweeper.spec.schedule import Schedule, choose_schedule, finishers_needed
-from sweeper.spec.sections import SCORES, StoppingSection
+from sweeper.spec.sections import SCORES, StoppingSection, StudySection
 from sweeper.tasks.base import SequenceSet, Split, Task
 from sweeper.tasks.registry import build_task
 from sweeper.training.epoch_loop import run_epochs
@@ -261,27 +261,40 @@ def ratio(values: Sequence[float], base: Sequence[float]) -> float:
     return median([v / b for v, b in zip(values, base, strict=True) if b > 0])
 
 
+def mean_ratio(values: Sequence[float], base: Sequence[float]) -> float:
+    """Geometric mean of value / base over study seeds (a diverged pick counts as 10x)."""
+    logs = [math.log(min(v / b, 10.0)) for v, b in zip(values, base, strict=True) if b > 0]
+    return math.exp(statistics.fmean(logs))
+
+
+def record(how: str, outcome: Outcome) -> str:
+    """Wins, ties and losses of ``how`` against ``last_epoch`` are counted from these."""
+    mine, last = outcome.quality[how], outcome.quality["last_epoch"]
+    return "W" if mine < last else ("T" if mine == last else "L")
+
+
 def report_scores(results: dict[str, list[Outcome]]) -> dict[str, float]:
-    print("\nscores: true quality of each score's pick (median held-out loss over study seeds)")
-    rows, worst = [], {how: 0.0 for how in SCORES}
+    print("\nscores: true quality (held-out loss) of each score's pick, per study seed")
+    for name, outcomes in results.items():
+        cells = [" ".join(f"{o.quality[how]:.4g}" for o in outcomes) for how in SCORES]
+        print(f"  {name}: " + "; ".join(f"{how} {c}" for how, c in zip(SCORES, cells, strict=True)))
+    print("\nmedians over study seeds; ratios to last_epoch: median and geometric mean; W/T/L")
+    rows, means = [], {how: [] for how in SCORES}
     for name, outcomes in results.items():
         last = [o.quality["last_epoch"] for o in outcomes]
-        ratios = {how: ratio([o.quality[how] for o in outcomes], last) for how in SCORES}
-        for how in SCORES:
-            worst[how] = max(worst[how], ratios[how])
-        wins = sum(o.quality["best_epoch"] <= o.quality["last_epoch"] for o in outcomes)
-        medians = [median([o.quality[how] for o in outcomes]) for how in SCORES]
-        rows.append(
-            [
-                name,
-                *(f"{m:.4g}" for m in medians),
-                *(ratios[h] for h in SCORES[:1] + SCORES[2:]),
-                f"{wins}/{len(outcomes)}",
-            ]
-        )
-    headers = ["task", *SCORES, "best/last", "recent/last", "best<=last"]
+        row: list[object] = [name]
+        row += [f"{median([o.quality[how] for o in outcomes]):.4g}" for how in SCORES]
+        for how in ("best_epoch", "recent_mean"):
+            mine = [o.quality[how] for o in outcomes]
+            means[how].append(mean_ratio(mine, last))
+            tally = [record(how, o) for o in outcomes]
+            counts = "/".join(str(tally.count(k)) for k in "WTL")
+            row += [ratio(mine, last), means[how][-1], counts]
+        rows.append(row)
+    headers = ["task", *SCORES, "best med", "best gmean", "best W/T/L"]
+    headers += ["recent med", "recent gmean", "recent W/T/L"]
     print_table(headers, rows)
-    return worst
+    return {how: max(values) for how, values in means.items() if values} | {"last_epoch": 1.0}
 
 
 def report_schedules(results: dict[str, list[Outcome]], setting: Setting) -> None:
@@ -372,7 +385,9 @@ def main() -> None:
     report_synthetic(args.quick)
     print(f"\nseconds {time.perf_counter() - started:.0f}")
     for how in SCORES:
-        print(f"worst_ratio_{how}_over_last {worst[how]:.3f}")
+        print(f"worst_ratio_{how}_over_last {worst[how]:.3f}")  # the worst task's geometric mean
+    print(f"chosen_by_measurement {min(SCORES, key=lambda how: (worst[how], how))}")
+    print(f"default_score {StudySection.score}")
 
 
 if __name__ == "__main__":

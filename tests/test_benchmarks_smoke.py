@@ -35,6 +35,12 @@ EXPECTED = {
         "sgemm_share_lstm_32",
         "sgemm_share_lstm_256",
     ],
+    "score_choice.py": [
+        "true quality of each score's pick",
+        "schedules for",
+        "short_of_wanted",
+        "worst_ratio_best_epoch_over_last",
+    ],
     "study_growth.py": ["stored trials", "watch-loop pass ms", "per_trial_ms_at_1000"],
     "checkpoint_cost.py": [
         "checkpoint_bytes",
