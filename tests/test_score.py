@@ -63,7 +63,7 @@ def completed(db: Path, study: str) -> list[optuna.trial.FrozenTrial]:
 
 
 SCORE_KEYS = {
-    "best_epoch": "",  # the default
+    "best_epoch": 'score = "best_epoch"\n',
     "last_epoch": 'score = "last_epoch"\n',
     "recent_mean": 'score = "recent_mean"\nrecent_epochs = 2\n',
 }
@@ -97,7 +97,8 @@ def test_retrain_trains_for_the_best_epoch_and_shows_the_held_out_score_once(
 ) -> None:
     spec = write_tiny_spec(in_tmp, trials=3, epochs=5)
     # a large learning rate makes late epochs worse than an earlier one on some trials
-    spec.write_text(spec.read_text().replace("0.001, 0.05", "0.05, 0.5"))
+    text = spec.read_text().replace("0.001, 0.05", "0.05, 0.5")
+    spec.write_text(text.replace("seed = 3\n", 'seed = 3\nscore = "best_epoch"\n'))
     sweep(spec)
     storage = open_storage(str(in_tmp / "runs" / "tiny.db"))
     best = optuna.load_study(study_name="tiny", storage=storage).best_trial
@@ -189,3 +190,14 @@ def test_a_continued_trials_score_counts_the_epochs_from_before_the_kill(
     assert len(before) == 2 and curve[1][:2] == before and len(curve[1]) == 4
     assert retry.value == pytest.approx(statistics.fmean(curve[1]), rel=1e-12)
     assert retry.user_attrs["score_epoch"] == 4
+
+
+def test_an_unknown_score_is_one_line_naming_the_key_and_the_choices(in_tmp: Path) -> None:
+    spec = write_tiny_spec(in_tmp)
+    spec.write_text(spec.read_text().replace("seed = 3\n", 'seed = 3\nscore = "best"\n'))
+    checked = invoke("check", spec.name)
+    assert checked.exit_code == 2
+    assert checked.output == (
+        f"sweeper: error: {spec.name}: study.score: must be one of best_epoch, last_epoch, "
+        "recent_mean, got 'best'; did you mean 'best_epoch'?\n"
+    )

@@ -1,12 +1,12 @@
 """The best trial of a study: its parameters as TOML, the spec fixed at them, a final fit.
 
-The fragment is a ``[training]`` table (every training parameter, and the epochs the trial
-ran; for an objective plugin a ``[search]`` table of fixed values) to merge into a spec by
-hand. ``fixed_spec`` is the whole stored spec with its search fixed at those values, a
-one-trial study ready to run. The final fit trains the best configuration, with its seed, on
-the training plus validation sequences for its score's epochs (its best epoch, under the
-default score), shows only training progress while it trains, and scores the held-out split
-once, at the end.
+The fragment is a ``[training]`` table (every training parameter, and the epochs of the
+trial's score; for an objective plugin a ``[search]`` table of fixed values) to merge into a
+spec by hand. ``fixed_spec`` is the whole stored spec with its search fixed at those values,
+a one-trial study ready to run. The final fit trains the best configuration, with its seed,
+on the training plus validation sequences for its score's epochs (its best epoch under
+``score = "best_epoch"``, else every epoch it ran), shows only training progress while it
+trains, and scores the held-out split once, at the end.
 """
 
 from __future__ import annotations
