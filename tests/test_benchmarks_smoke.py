@@ -36,7 +36,8 @@ EXPECTED = {
         "sgemm_share_lstm_256",
     ],
     "score_choice.py": [
-        "true quality of each score's pick",
+        "true quality (held-out loss) of each score's pick",
+        "chosen_by_measurement",
         "schedules for",
         "short_of_wanted",
         "worst_ratio_best_epoch_over_last",

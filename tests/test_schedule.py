@@ -120,7 +120,6 @@ lr = { between = [0.001, 0.1], scale = "log" }
 """
 
 
-@pytest.mark.slow  # 24 trials: several seconds on a loaded machine
 def test_a_sweep_without_stopping_keys_lets_enough_trials_finish(in_tmp: Path) -> None:
     (in_tmp / "fitted.toml").write_text(FITTED, encoding="utf-8")
     checked = invoke("check", "fitted.toml")
