@@ -201,3 +201,12 @@ def test_an_unknown_score_is_one_line_naming_the_key_and_the_choices(in_tmp: Pat
         f"sweeper: error: {spec.name}: study.score: must be one of best_epoch, last_epoch, "
         "recent_mean, got 'best'; did you mean 'best_epoch'?\n"
     )
+
+
+def test_a_study_refuses_a_spec_whose_score_changed(in_tmp: Path) -> None:
+    spec = write_tiny_spec(in_tmp, trials=1, epochs=1)
+    assert invoke("run", spec.name, "--report", "t.html").exit_code == 0
+    spec.write_text(spec.read_text().replace("seed = 3\n", 'seed = 3\nscore = "best_epoch"\n'))
+    again = invoke("run", spec.name, "--report", "t.html")
+    assert again.exit_code == 2
+    assert "study.score" in again.output
