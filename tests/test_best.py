@@ -41,7 +41,7 @@ valid_fraction = 0.2
 test_fraction = 0.2
 
 [training]
-epochs = 4
+epochs = 8
 threads = 1
 cell = "gru"
 
