@@ -20,6 +20,7 @@ import optuna
 from optuna.trial import FrozenTrial
 
 from sweeper.errors import InputError, RunFailure, SpecError
+from sweeper.results.choice import chosen_trial, confirmed_choice
 from sweeper.results.fixed_spec import SEARCHLESS_SAMPLERS, SpecEdit, fixed_text, toml_value
 from sweeper.results.stored_trial import (
     StoredTrial,
@@ -41,24 +42,16 @@ from sweeper.training.models import ModelBuilder
 from sweeper.training.trial_run import TrialRun
 
 
-def best_trial(study: optuna.Study) -> FrozenTrial:
-    try:
-        return study.best_trial
-    except ValueError:
-        raise InputError(
-            f"study '{study.study_name}' has no completed trial yet; run or resume it first"
-        ) from None
-
-
 def fragment(study: optuna.Study, spec: Spec) -> str:
     """The best parameters as TOML, headed by a comment that says where they come from."""
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     objective = StudyInfo.of(study).objective
     epochs = TrialInfo.of(trial).epochs
     head = (
         f"# best of '{study.study_name}': trial {trial.number}, {objective} {trial.value!r}"
         f" after {'?' if epochs is None else epochs} epochs"
     )
+    head = "\n".join([*(f"# {line}" for line in confirmed_choice(study, spec).lines()), head])
     if spec.is_objective_plugin:
         return _table(head, "search", trial.params)
     stored = stored_trial(study, spec, trial)
@@ -77,7 +70,7 @@ def _training_values(spec: Spec, stored: StoredTrial) -> dict[str, Any]:
 def ensure_refittable(study: optuna.Study, spec: Spec) -> None:
     """Refuse up front, before anything is printed, a study whose best trial cannot be
     trained again (an objective plugin, or a trial that recorded no training)."""
-    stored_trial(study, spec, best_trial(study))
+    stored_trial(study, spec, chosen_trial(study, spec))
 
 
 def fixed_spec(study: optuna.Study, spec: Spec) -> str:
@@ -88,7 +81,7 @@ def fixed_spec(study: optuna.Study, spec: Spec) -> str:
     the study seed for trial 0, which is the best trial's own seed only when that was trial
     0; the head says so, and how to train with the very seed.
     """
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     name = f"{study.study_name}-trial-{trial.number}"
     settings: dict[str, Any] = {"name": name, "trials": 1, "workers": 1}
     if spec.study.sampler in SEARCHLESS_SAMPLERS:
@@ -165,7 +158,7 @@ def refit_best(
 ) -> Refit:
     """Train the best configuration, with its seed and the sweep's thread count, on train +
     valid for the epochs it ran (so the same study always gives the same final model)."""
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     stored = stored_trial(study, spec, trial)
     task, build = training_setup(spec)
     refit = RefitTask(task)
@@ -190,7 +183,7 @@ def refit_lines(result: Refit) -> list[str]:
 
 
 def start_line(study: optuna.Study, spec: Spec) -> str:
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     return (
         f"# final fit of trial {trial.number} on training + validation data "
         f"for {_epochs(trial, spec)} epochs"

@@ -5,11 +5,15 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
+import optuna
 from optuna.trial import FrozenTrial
 from rich.console import Console
 from rich.table import Table
 
+from sweeper.errors import InputError
+from sweeper.results.choice import confirmed_choice
 from sweeper.results.summary_stamp import read_stamp
+from sweeper.spec.sections import Spec
 from sweeper.store.connect import redact
 from sweeper.sweep.progress import Snapshot, format_seconds
 
@@ -23,11 +27,17 @@ def _eta_text(snap: Snapshot) -> str:
     return format_seconds(snap.eta_seconds)
 
 
+def _confirmation_cell(done: int, to_go: int) -> str:
+    if not (done or to_go):
+        return "-"
+    return f"{done} (+{to_go})" if to_go else str(done)
+
+
 def status_table(snap: Snapshot) -> str:
     counts = snap.counts
     summary = Table(title=f"study {snap.study_name}", show_header=True)
     columns = ("budget", "complete", "stopped", "failed", "interrupted", "running", "waiting")
-    for column in (*columns, "best", "ETA"):
+    for column in (*columns, "confirmation", "best", "ETA"):
         summary.add_column(column, justify="right")
     best = "-" if snap.best_value is None else f"{snap.best_value:.5g} (trial {snap.best_trial})"
     eta = _eta_text(snap)
@@ -39,6 +49,7 @@ def status_table(snap: Snapshot) -> str:
         str(counts.interrupted),
         str(counts.running),
         str(counts.waiting),
+        _confirmation_cell(counts.confirmed, counts.confirming),
         best,
         eta,
     )
@@ -79,3 +90,11 @@ def stale_summary_line(page: Path, trials: list[FrozenTrial], location: str) -> 
         f"(written {stamp.written:%Y-%m-%d %H:%M} UTC); "
         f"refresh with: sweeper report {redact(location)}"
     )
+
+
+def choice_lines(study: optuna.Study, spec: Spec) -> list[str]:
+    """The configuration the study chooses now (confirmed or not yet), in words."""
+    try:
+        return confirmed_choice(study, spec).lines()
+    except InputError:  # nothing completed yet: the table says so
+        return []

@@ -40,10 +40,13 @@ class Snapshot:
         best = "-" if self.best_value is None else f"{self.best_value:.5g} (#{self.best_trial})"
         eta = "-" if self.eta_seconds is None else format_seconds(self.eta_seconds)
         interrupted = f", {c.interrupted} interrupted" if c.interrupted else ""
+        confirming = ""
+        if c.confirmed or c.confirming:
+            confirming = f"; confirmation {c.confirmed} done, {c.confirming} to go"
         return (
             f"{self.study_name}: {c.finished}/{self.budget} finished "
             f"({c.complete} complete, {c.pruned} stopped), {c.running} running, "
-            f"{c.failed} failed{interrupted}; best {best}; ETA {eta}"
+            f"{c.failed} failed{interrupted}{confirming}; best {best}; ETA {eta}"
         )
 
 
