@@ -88,6 +88,7 @@ class TrialRow:
     clip: float  # NaN when unknown; 0 means clipping off
     lr: float
     curve: tuple[tuple[int, float], ...]  # (step, objective) as reported per epoch
+    confirms: int | None = None  # a confirmation trial: the searched trial it repeats
 
     @property
     def finished(self) -> bool:
@@ -246,6 +247,7 @@ def _trial_row(trial: FrozenTrial) -> TrialRow:
         clip=_float(trial.params.get("clip", training.get("clip"))),
         lr=_float(trial.params.get("lr", training.get("lr"))),
         curve=tuple(sorted((int(k), _float(v)) for k, v in trial.intermediate_values.items())),
+        confirms=info.confirms,
     )
 
 

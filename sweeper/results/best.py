@@ -51,12 +51,13 @@ def fragment(study: optuna.Study, spec: Spec) -> str:
         f"# best of '{study.study_name}': trial {trial.number}, {objective} {trial.value!r}"
         f" after {'?' if epochs is None else epochs} epochs"
     )
-    head = "\n".join([*(f"# {line}" for line in confirmed_choice(study, spec).lines()), head])
+    choice = confirmed_choice(study, spec)
+    notes = [f"# {line}" for line in choice.lines()] if choice.confirmed else []
     if spec.is_objective_plugin:
-        return _table(head, "search", trial.params)
+        return _table([head, *notes], "search", trial.params)
     stored = stored_trial(study, spec, trial)
     values = {"epochs": _epochs(trial, spec), **_training_values(spec, stored)}
-    return _table(f"{head}, seed {stored.seed}", "training", values)
+    return _table([f"{head}, seed {stored.seed}", *notes], "training", values)
 
 
 def _training_values(spec: Spec, stored: StoredTrial) -> dict[str, Any]:
@@ -123,8 +124,8 @@ def _seed_lines(study: optuna.Study, spec: Spec, stored: StoredTrial) -> list[st
     ]
 
 
-def _table(head: str, name: str, values: Mapping[str, Any]) -> str:
-    lines = [head, f"[{name}]"] + [f"{key} = {toml_value(v)}" for key, v in values.items()]
+def _table(head: list[str], name: str, values: Mapping[str, Any]) -> str:
+    lines = [*head, f"[{name}]"] + [f"{key} = {toml_value(v)}" for key, v in values.items()]
     return "\n".join(lines)
 
 

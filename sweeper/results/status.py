@@ -27,17 +27,11 @@ def _eta_text(snap: Snapshot) -> str:
     return format_seconds(snap.eta_seconds)
 
 
-def _confirmation_cell(done: int, to_go: int) -> str:
-    if not (done or to_go):
-        return "-"
-    return f"{done} (+{to_go})" if to_go else str(done)
-
-
 def status_table(snap: Snapshot) -> str:
     counts = snap.counts
     summary = Table(title=f"study {snap.study_name}", show_header=True)
     columns = ("budget", "complete", "stopped", "failed", "interrupted", "running", "waiting")
-    for column in (*columns, "confirmation", "best", "ETA"):
+    for column in (*columns, "best", "ETA"):
         summary.add_column(column, justify="right")
     best = "-" if snap.best_value is None else f"{snap.best_value:.5g} (trial {snap.best_trial})"
     eta = _eta_text(snap)
@@ -49,13 +43,17 @@ def status_table(snap: Snapshot) -> str:
         str(counts.interrupted),
         str(counts.running),
         str(counts.waiting),
-        _confirmation_cell(counts.confirmed, counts.confirming),
         best,
         eta,
     )
     buffer = io.StringIO()
     console = Console(file=buffer, width=110, color_system=None)
     console.print(summary)
+    if counts.confirmed or counts.confirming:
+        console.print(
+            f"confirmation trials (outside the budget): {counts.confirmed} finished, "
+            f"{counts.confirming} running or waiting"
+        )
     if snap.running:
         running = Table(title="running trials")
         for column in ("trial", "epoch", "age", "worker"):
