@@ -165,6 +165,8 @@ def worker(study_location: str, report_path: str | None) -> None:
             f"{where}"
         )
         return
+    for line in _settled_choice(result.location, result.study_name):
+        click.echo(line)
     _write_summary(result.location, report_path, result.study_name)
 
 
