@@ -47,7 +47,7 @@ TARGET_RATIO = 3.0
 SPEC = """
 [study]
 name = "{name}"
-goal = "maximize"
+better = "higher"
 objective = "valid_metric"
 trials = {trials}
 seed = {seed}

@@ -12,8 +12,21 @@ from collections.abc import Iterable
 # default is 0.6; 0.5 lets a short misspelling such as "adder" still find "adding" (0.545).
 CUTOFF = 0.5
 
+# Words sweeper once used, each pointing at the word that replaced it (a key or a value).
+RENAMED = {
+    "goal": "better",
+    "minimize": "lower",
+    "maximize": "higher",
+}
+
 
 def closest(word: str, candidates: Iterable[str]) -> str | None:
-    """The candidate nearest to ``word`` (difflib.get_close_matches), or None when none is close."""
-    matches = difflib.get_close_matches(word, list(candidates), n=1, cutoff=CUTOFF)
+    """The candidate nearest to ``word`` (difflib.get_close_matches), or None when none is close.
+
+    A renamed word points at its replacement whenever that is one of the candidates.
+    """
+    allowed = list(candidates)
+    if RENAMED.get(word) in allowed:
+        return RENAMED[word]
+    matches = difflib.get_close_matches(word, allowed, n=1, cutoff=CUTOFF)
     return matches[0] if matches else None

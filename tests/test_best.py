@@ -250,7 +250,7 @@ def test_loading_something_else_is_a_one_line_input_error(tmp_path: Path) -> Non
 SEQUENCES = """
 [study]
 name = "parcels"
-goal = "maximize"
+better = "higher"
 objective = "valid_metric"
 trials = 2
 seed = 4

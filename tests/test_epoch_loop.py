@@ -115,18 +115,18 @@ def _assert_same_weights(a: dict[str, torch.Tensor], b: dict[str, torch.Tensor])
 
 
 @pytest.mark.parametrize(
-    ("goal", "values", "best_epoch"),
+    ("better", "values", "best_epoch"),
     [
-        ("minimize", {1: 3.0, 2: 1.0, 3: 1.0, 4: 2.0}, 2),  # a tie keeps the earlier epoch
-        ("maximize", {1: 3.0, 2: 1.0, 3: 4.0, 4: 2.0}, 3),
-        ("minimize", {1: math.nan, 2: 5.0, 3: math.inf, 4: 6.0}, 2),  # non-finite never best
+        ("lower", {1: 3.0, 2: 1.0, 3: 1.0, 4: 2.0}, 2),  # a tie keeps the earlier epoch
+        ("higher", {1: 3.0, 2: 1.0, 3: 4.0, 4: 2.0}, 3),
+        ("lower", {1: math.nan, 2: 5.0, 3: math.inf, 4: 6.0}, 2),  # non-finite never best
     ],
 )
 def test_best_weights_are_the_models_weights_after_the_best_epoch(
-    goal: str, values: dict[int, float], best_epoch: int
+    better: str, values: dict[int, float], best_epoch: int
 ) -> None:
     run = healthy_run()
-    best = BestWeights(run, lambda record: values[record.epoch], goal)  # type: ignore[arg-type]
+    best = BestWeights(run, lambda record: values[record.epoch], better)  # type: ignore[arg-type]
     run_epochs(run, 4, on_epoch=[best])
     assert (best.epoch, best.value) == (best_epoch, values[best_epoch])
     assert best.state is not None

@@ -57,7 +57,7 @@ lr = {{ between = [0.003, 0.02], scale = "log" }}
 DIGITS = """
 [study]
 name = "digits"
-goal = "maximize"
+better = "higher"
 objective = "valid_metric"
 trials = {trials}
 seed = 2

@@ -23,7 +23,7 @@ REPO = Path(__file__).resolve().parents[1]
 TRAINING_SPEC = """
 [study]
 name = "rules"
-goal = "{goal}"
+better = "{better}"
 trials = 4
 [confirm]
 configurations = 0  # the test counts searched trials
@@ -41,8 +41,8 @@ unroll = 6
 """
 
 
-def _training_spec(stopping: str, epochs: int = 6, goal: str = "minimize") -> Spec:
-    return parse_spec(TRAINING_SPEC.format(goal=goal, epochs=epochs, stopping=stopping), "<t>")
+def _training_spec(stopping: str, epochs: int = 6, better: str = "lower") -> Spec:
+    return parse_spec(TRAINING_SPEC.format(better=better, epochs=epochs, stopping=stopping), "<t>")
 
 
 def _first_stop(study: optuna.Study, value: float, epochs: int) -> int:
@@ -80,7 +80,8 @@ def test_hyperband_brackets_follow_li_et_al_2018() -> None:
 
 
 def _asha_study(goal: str = "minimize") -> optuna.Study:
-    spec = _training_spec('rule = "asha"\nmin_epochs = 1\nreduction = 3', epochs=9, goal=goal)
+    better = "lower" if goal == "minimize" else "higher"
+    spec = _training_spec('rule = "asha"\nmin_epochs = 1\nreduction = 3', epochs=9, better=better)
     return optuna.create_study(direction=goal, pruner=make_pruner(spec))
 
 

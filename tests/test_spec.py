@@ -12,7 +12,12 @@ import pytest
 from sweeper.errors import SpecError
 from sweeper.spec.checks import build_spec_task
 from sweeper.spec.loading import load_spec, parse_spec
-from sweeper.spec.sections import StoppingSection, StudySection, TrainingSection
+from sweeper.spec.sections import (
+    StoppingSection,
+    StudySection,
+    TrainingSection,
+    renamed_keys_upgraded,
+)
 from sweeper.spec.space import Choices, Fixed, Range
 from sweeper.tasks import series
 from sweeper.tasks.section import TaskSection
@@ -73,6 +78,15 @@ def _error(text: str) -> str:
         (
             ("[study]", "[study]\nnmae = 1"),
             "bad.toml: study.nmae: unknown key; did you mean 'name'?",
+        ),
+        (
+            ("[study]", '[study]\ngoal = "maximize"'),  # the key's earlier name
+            "bad.toml: study.goal: unknown key; did you mean 'better'?",
+        ),
+        (
+            ("[study]", '[study]\nbetter = "minimize"'),
+            "bad.toml: study.better: must be one of lower, higher, got 'minimize'; "
+            "did you mean 'lower'?",
         ),
         (("trials = 4", 'trials = "four"'), "bad.toml: study.trials: must be an integer"),
         (("[2, 20]", "[20, 2]"), "bad.toml: search.unroll.between: empty range [20, 2]"),
@@ -139,9 +153,12 @@ def test_a_first_look_checks_sections_but_not_the_task(tmp_path: Path) -> None:
         (lambda: StudySection(name=" "), "study.name: must not be empty"),
         (lambda: StudySection(name="x", trials="4"), "study.trials: must be an integer"),
         (
-            lambda: StudySection(name="x", goal="maximise"),
-            "study.goal: must be one of minimize, maximize, got 'maximise'; "
-            "did you mean 'maximize'?",
+            lambda: StudySection(name="x", better="hihger"),
+            "study.better: must be one of lower, higher, got 'hihger'; did you mean 'higher'?",
+        ),
+        (
+            lambda: StudySection(name="x", better="maximize"),
+            "study.better: must be one of lower, higher, got 'maximize'; did you mean 'higher'?",
         ),
         (lambda: TrainingSection(epochs=0), "training.epochs: must be at least 1, got 0"),
         (lambda: TrainingSection(defaults={"hiden": 8}), "training.hiden: unknown key; did you"),
@@ -336,3 +353,16 @@ def test_the_task_is_built_again_after_its_data_file_changed(
     os.utime(data, ns=(0, data.stat().st_mtime_ns + 10**9))  # a new time, even on coarse clocks
     rebuilt = build_spec_task(load_spec(path))
     assert rebuilt is not first and len(reads) == 2
+
+
+def test_a_stored_spec_with_the_earlier_key_name_still_resumes() -> None:
+    # a study made before `goal` became `better` stores its text with the old key
+    old = GOOD.replace("[study]", '[study]\ngoal = "maximize"', 1)
+    upgraded = parse_spec(renamed_keys_upgraded(old), "stored", check_task=False)
+    assert upgraded.study.better == "higher"
+    assert (
+        upgraded.digest()
+        == parse_spec(
+            GOOD.replace("[study]", '[study]\nbetter = "higher"', 1), "x", check_task=False
+        ).digest()
+    )

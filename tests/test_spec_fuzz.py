@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 
 from sweeper.errors import SpecError
 from sweeper.spec.loading import parse_spec
-from sweeper.spec.sections import GOALS, RULES, Spec
+from sweeper.spec.sections import BETTER, RULES, Spec
 from sweeper.spec.space import Choices, Fixed, SearchEntry, draw
 from sweeper.training.params import CELLS, OPTIMIZERS
 
@@ -22,7 +22,7 @@ KEYS = [
     "trials",
     "workers",
     "seed",
-    "goal",
+    "better",
     "objective",
     "sampler",
     "kind",
@@ -212,7 +212,7 @@ valid_documents = st.fixed_dictionaries(
         "study": st.fixed_dictionaries(
             {
                 "name": st.sampled_from(["a", "sweep one"]),
-                "goal": st.sampled_from(GOALS),
+                "better": st.sampled_from(BETTER),
                 "trials": st.integers(1, 500),
                 "seed": st.integers(0, 2**31),
                 "sampler": st.sampled_from(["tpe", "random", "sobol"]),

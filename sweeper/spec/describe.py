@@ -25,8 +25,8 @@ def describe_spec(spec: Spec) -> str:
     study = spec.study
     lines = [
         f"{spec.source}: ok",
-        f"  study    {study.name}: {study.goal} {study.objective}, sampler {study.sampler}, "
-        f"seed {study.seed}, stopping rule {spec.stopping.rule}",
+        f"  study    {study.name}: {study.objective} ({study.better} is better), "
+        f"sampler {study.sampler}, seed {study.seed}, stopping rule {spec.stopping.rule}",
     ]
     if spec.is_objective_plugin:
         lines.append(f"  task     objective plugin {spec.task.function}")

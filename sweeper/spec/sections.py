@@ -6,6 +6,7 @@ import dataclasses
 import hashlib
 import json
 import math
+import re
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -18,7 +19,7 @@ from sweeper.spec.space import SearchEntry, grid_points, parse_search
 from sweeper.tasks.section import TaskSection, task_section
 from sweeper.training.params import PARAM_NAMES, TrialParams
 
-GOALS = ("minimize", "maximize")
+BETTER = ("lower", "higher")  # which way a value is better
 OBJECTIVES = ("valid_loss", "valid_metric")
 SAMPLERS = ("tpe", "random", "sobol", "grid", "cmaes")
 RULES = ("none", "median", "asha", "hyperband")
@@ -57,7 +58,7 @@ class StudySection:
     compute_hours: float = 0.0  # a second budget: total compute of the trials; 0 = none
     workers: int = 1
     seed: int = 0
-    goal: str = "minimize"
+    better: str = "lower"
     objective: str = "valid_loss"
     sampler: str = "tpe"
     storage: str = ""
@@ -70,7 +71,7 @@ class StudySection:
         _check_field_types(self, "study")
         if not self.name.strip():
             raise SectionError("study.name", "must not be empty")
-        _require_choice("study.goal", self.goal, GOALS)
+        _require_choice("study.better", self.better, BETTER)
         _require_choice("study.objective", self.objective, OBJECTIVES)
         _require_choice("study.sampler", self.sampler, SAMPLERS)
         _require_min("study.trials", self.trials, 1)
@@ -167,8 +168,12 @@ class Spec:
 
     def canonical(self) -> dict[str, Any]:
         """The parsed spec as plain data: what two launches of one study must agree on."""
+        study = dataclasses.asdict(self.study)
+        # The digest predates the key's rename: it keeps the earlier key and words, so
+        # studies made before the rename continue.
+        study["goal"] = "minimize" if study.pop("better") == "lower" else "maximize"
         return {
-            "study": dataclasses.asdict(self.study),
+            "study": study,
             "task": self.task.table(),
             "training": dataclasses.asdict(self.training),
             "search": {name: entry.describe() for name, entry in sorted(self.search.items())},
@@ -198,6 +203,18 @@ class Spec:
             changes["storage"] = storage
         study = dataclasses.replace(self.study, **changes)
         return dataclasses.replace(self, study=study, overrides=self.overrides | set(changes))
+
+
+def renamed_keys_upgraded(text: str) -> str:
+    """A stored spec's text with the study key's earlier name (``goal = "minimize"``) written
+    in today's words, so that a study made before the rename still resumes."""
+    words = {"minimize": "lower", "maximize": "higher"}
+    return re.sub(
+        r'^(\s*)goal(\s*=\s*)"(minimize|maximize)"',
+        lambda m: f'{m.group(1)}better{m.group(2)}"{words[m.group(3)]}"',
+        text,
+        flags=re.MULTILINE,
+    )
 
 
 def _positive(source: str, key: str, value: int) -> int:

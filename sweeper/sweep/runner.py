@@ -53,7 +53,7 @@ def objective_value(spec: Spec, record: EpochRecord) -> float:
 
 
 def worst_value(spec: Spec) -> float:
-    return math.inf if spec.study.goal == "minimize" else -math.inf
+    return math.inf if spec.study.better == "lower" else -math.inf
 
 
 def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:

@@ -17,7 +17,13 @@ from optuna.trial import FrozenTrial, TrialState
 from sweeper.errors import SpecChanged, StudyNotFound
 from sweeper.seeds import new_stream, sampler_seed
 from sweeper.spec.loading import parse_spec
-from sweeper.spec.sections import MUTABLE_KEYS, Spec, budget_of, spec_from_text
+from sweeper.spec.sections import (
+    MUTABLE_KEYS,
+    Spec,
+    budget_of,
+    renamed_keys_upgraded,
+    spec_from_text,
+)
 from sweeper.spec.space import grid_points
 from sweeper.store import tables
 from sweeper.store.attrs import (
@@ -172,7 +178,7 @@ def create_or_continue(
     """The study named in the spec; a different spec under the same name is refused."""
     names = set(optuna.get_all_study_names(storage))
     direction = optuna.study.StudyDirection.MINIMIZE
-    if spec.study.goal == "maximize":
+    if spec.study.better == "higher":
         direction = optuna.study.StudyDirection.MAXIMIZE
     study = optuna.create_study(
         storage=storage, study_name=spec.study.name, direction=direction, load_if_exists=True
@@ -218,7 +224,7 @@ def load_existing(
     info = StudyInfo.of(study)
     if info.spec_text is None:
         raise StudyNotFound(f"{redact(location)}: '{study_name}' was not made by sweeper")
-    spec = parse_spec(info.spec_text, info.spec_source or "<stored spec>")
+    spec = parse_spec(renamed_keys_upgraded(info.spec_text), info.spec_source or "<stored spec>")
     # the stored budget and worker count, which may differ from the stored text's; they are
     # the study's own settings, not a command line's
     spec = spec.with_overrides(trials=info.budget, workers=info.workers)

@@ -71,19 +71,20 @@ def run_epochs(
 class BestWeights:
     """An ``on_epoch`` hook that keeps a copy of the model's weights at its best epoch.
 
-    ``value`` picks the measure from a record (validation loss, say); ``goal`` says which way
-    is better. A non-finite value is never best; a tie keeps the earlier epoch.
+    ``value`` picks the measure from a record (validation loss, say); ``better`` says which way
+    is better ("lower" or "higher"). A non-finite value is never best; a tie keeps the earlier
+    epoch.
     """
 
     def __init__(
         self,
         run: TrialRun,
         value: Callable[[EpochRecord], float],
-        goal: Literal["minimize", "maximize"] = "minimize",
+        better: Literal["lower", "higher"] = "lower",
     ) -> None:
         self._run = run
         self._value = value
-        self._sign = 1.0 if goal == "minimize" else -1.0
+        self._sign = 1.0 if better == "lower" else -1.0
         self.epoch: int | None = None
         self.value = math.nan
         self.state: dict[str, Any] | None = None
