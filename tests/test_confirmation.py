@@ -9,13 +9,16 @@ import signal
 from collections import Counter
 from pathlib import Path
 
+import optuna
 import pytest
+from optuna.distributions import FloatDistribution
 from optuna.trial import TrialState
 
 from sweeper.results.choice import Candidate, cannot_tell_apart, confirmed_choice
 from sweeper.seeds import confirmation_seed
 from sweeper.spec.loading import parse_spec
 from sweeper.store.attrs import StudyInfo, TrialInfo
+from sweeper.sweep.confirmation import plan
 from sweeper.sweep.launcher import run_sweep
 from sweeper.sweep.progress import ProgressDisplay
 from sweeper.sweep.study import load_existing, tally
@@ -162,3 +165,22 @@ def test_a_confirmation_trial_survives_a_kill_and_resumes(tmp_path: Path, sig: i
     assert TrialInfo.of(again).seed == TrialInfo.of(cut).seed
     assert (TrialInfo.of(again).resumed_from_epoch or 0) >= 1
     assert "chosen: trial" in resumed.stdout and "over 3 seeds" in resumed.stdout
+
+
+def test_a_higher_is_better_study_confirms_its_highest_configurations() -> None:
+    spec = parse_spec(
+        '[study]\nname = "up"\nbetter = "higher"\n[task]\nkind = "adding"\n'
+        "[search]\nlr = { between = [0.001, 0.1] }\n[confirm]\nconfigurations = 2\nseeds = 3\n",
+        "<up>",
+    )
+    trials = []
+    for number, value in enumerate([0.2, 0.9, 0.5, 0.7]):
+        trial = optuna.trial.create_trial(
+            value=value, params={"lr": 0.001 * (number + 1)},
+            distributions={"lr": FloatDistribution(0.001, 0.1)},
+        )  # fmt: skip
+        trial.number = number
+        trials.append(trial)
+    assert [(p.searched, p.round) for p in plan(trials, spec)] == [
+        (1, 1), (1, 2), (1, 3), (3, 1), (3, 2), (3, 3)
+    ]  # fmt: skip

@@ -168,7 +168,7 @@ def confirmed_choice(study: optuna.Study, spec: Spec) -> Choice:
         raise InputError(
             f"study '{study.study_name}' has no completed trial yet; run or resume it first"
         )
-    sign = 1.0 if spec.study.goal == "minimize" else -1.0
+    sign = 1.0 if spec.study.better == "lower" else -1.0
     extra = _confirmation_values(trials, sign * math.inf)
     pending = len(missing(trials, spec)) + sum(
         1

@@ -45,7 +45,7 @@ def ranked_searched(trials: Sequence[FrozenTrial], spec: Spec) -> list[FrozenTri
         for t in searched_only(trials)
         if t.state == TrialState.COMPLETE and t.value is not None and math.isfinite(t.value)
     ]
-    sign = 1.0 if spec.study.goal == "minimize" else -1.0
+    sign = 1.0 if spec.study.better == "lower" else -1.0
     done.sort(key=lambda t: (sign * float(t.value or 0.0), t.number))
     best: list[FrozenTrial] = []
     seen: set[tuple[str, ...]] = set()
