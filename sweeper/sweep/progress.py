@@ -71,7 +71,7 @@ def _eta(trials: list[FrozenTrial], counts: Tally, budget: int, workers: int) ->
         and t.datetime_start is not None
         and t.datetime_complete is not None
     ]
-    remaining = max(0, budget - counts.finished)
+    remaining = max(0, budget - counts.finished) + counts.confirming  # confirmation comes after
     if remaining == 0:
         return 0.0
     if not durations:
