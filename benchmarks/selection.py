@@ -107,6 +107,7 @@ class Setting:
     epochs: int
     train: int  # training sequences of the generated tasks
     length: int
+    confirm: tuple[int, int] | None = None  # (b)'s [confirm] (configurations, seeds); None: default
 
 
 FULL = Setting(seeds=7, trials=12, epochs=8, train=384, length=20)
@@ -156,6 +157,8 @@ def spec_text(
     else:
         study = 'score = "best_epoch"\n' if scores else ""
         tail = ""
+        if setting.confirm is not None:
+            tail = "[confirm]\nconfigurations = {}\nseeds = {}\n".format(*setting.confirm)
     unroll = (
         "unroll = { one_of = [6, 12, 24] }"
         if task == "sunspots"
@@ -256,6 +259,7 @@ class Seeded:
     top: list[tuple[float, dict[str, Any]]]  # (searched value, params) of both studies
     tied: bool  # (b) said its top configurations cannot be told apart
     runner_up: dict[str, Any] | None  # (b)'s second confirmed configuration
+    trials_a: int  # searched trials (a) ran
 
 
 def one_seed(task: str, seed: int, setting: Setting, folder: Path) -> tuple[Seeded, Spec]:
@@ -275,7 +279,7 @@ def one_seed(task: str, seed: int, setting: Setting, folder: Path) -> tuple[Seed
     runner_up = dict(choice.candidates[1].params) if len(choice.candidates) > 1 else None
     seeded = Seeded(
         dict(best_a.params), dict(choice.params), compute_of(study_a), compute_b, top,
-        bool(choice.tied_with), runner_up,
+        bool(choice.tied_with), runner_up, len(study_a.get_trials(deepcopy=False)),
     )  # fmt: skip
     return seeded, spec_b
 
@@ -289,6 +293,7 @@ class TaskResult:
     compute_b: float
     close: int  # seeds whose top two confirmed configurations are truly within a standard error
     close_flagged: int  # of those, the ones (b) said cannot be told apart
+    trials_a: float  # mean trials of (a)
 
     @property
     def median_a(self) -> float:
@@ -343,6 +348,7 @@ def run_task(task: str, setting: Setting, folder: Path, say: Callable[[str], Non
         sum(s.compute_b for s in seeded),
         close,
         flagged,
+        float(np.mean([s.trials_a for s in seeded])),
     )
 
 
@@ -364,11 +370,13 @@ def main() -> None:
     parser.add_argument("--trials", type=int, help="the new default's search budget")
     parser.add_argument("--epochs", type=int, help="epochs per trial")
     parser.add_argument("--tasks", default=",".join(TASKS), help="comma-separated task names")
+    parser.add_argument("--confirm", help="(b)'s confirmation as CONFIGURATIONS,SEEDS")
     args = parser.parse_args()
     base = QUICK if args.quick else FULL
     setting = Setting(
         args.seeds or base.seeds, args.trials or base.trials, args.epochs or base.epochs,
         base.train, base.length,
+        tuple(int(v) for v in args.confirm.split(",")) if args.confirm else None,  # type: ignore[arg-type]
     )  # fmt: skip
     torch.set_num_threads(1)
     print(machine_line())
@@ -379,7 +387,8 @@ def main() -> None:
     )
     print(
         f"setting: {setting.seeds} study seeds, {setting.trials} searched trials for (b), "
-        f"{setting.epochs} epochs, {TRUTH_SEEDS} seeds of true quality; (b): {scores}"
+        f"{setting.epochs} epochs, {TRUTH_SEEDS} seeds of true quality; (b): {scores}; "
+        f"(b)'s confirmation: {setting.confirm or 'the default'}"
     )
     results = []
     started = time.perf_counter()
@@ -391,13 +400,13 @@ def main() -> None:
     rows = [
         [
             r.name, r.median_a, r.median_b, r.median_ratio(), f"{r.close_flagged}/{r.close}",
-            r.compute_b / max(r.compute_a, 1e-9),
+            r.compute_b / max(r.compute_a, 1e-9), r.trials_a,
         ]
         for r in results
     ]  # fmt: skip
     print_table(
         ["task", "median regret (a)", "median regret (b)", "median (a)/(b)",
-         "close pairs flagged", "compute (b)/(a)"],
+         "close pairs flagged", "compute (b)/(a)", "trials (a)"],
         rows,
     )  # fmt: skip
     print(f"wall seconds: {time.perf_counter() - started:.0f}")
