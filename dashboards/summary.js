@@ -25,22 +25,40 @@
     originalError.apply(console, arguments);
   };
 
+  // No toolbar over the figures: zoom by dragging, double-click to reset. Nothing on the page
+  // can send data anywhere; the summary stays on this machine.
+  var OPTIONS = { displayModeBar: false, displaylogo: false, responsive: true,
+    showSendToCloud: false, scrollZoom: false };
+
+  function draw(figures, id) {
+    var target = document.getElementById(id);
+    Plotly.newPlot(target, figures[id].data, figures[id].layout, OPTIONS).then(function () {
+      status.dataset.figuresRendered = String(Number(status.dataset.figuresRendered) + 1);
+      status.dataset.figuresFolded = String(Number(status.dataset.figuresFolded) - 1);
+    }, noteError);
+  }
+
   function drawFigures() {
     var figures = JSON.parse(document.getElementById("sweeper-figures").textContent);
-    var rendered = 0;
-    Object.keys(figures).forEach(function (id) {
+    var ids = Object.keys(figures);
+    status.dataset.figuresFolded = String(ids.length);
+    ids.forEach(function (id) {
       var target = document.getElementById(id);
       if (!target) {
         noteError("no place for figure " + id);
         return;
       }
-      // No button may send data anywhere: the summary stays on this machine.
-      var options = { displaylogo: false, responsive: true, showSendToCloud: false,
-        modeBarButtonsToRemove: ["sendChartToCloud"] };
-      Plotly.newPlot(target, figures[id].data, figures[id].layout, options).then(function () {
-        rendered += 1;
-        status.dataset.figuresRendered = String(rendered);
-      }, noteError);
+      // A figure inside a folded part is drawn when it is opened: folded, it has no width.
+      var fold = target.closest("details:not([open])");
+      if (!fold) {
+        draw(figures, id);
+        return;
+      }
+      fold.addEventListener("toggle", function once() {
+        if (!fold.open) return;
+        fold.removeEventListener("toggle", once);
+        draw(figures, id);
+      });
     });
   }
 

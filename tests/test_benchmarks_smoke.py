@@ -40,12 +40,25 @@ EXPECTED = {
         "share of sgemm",
         "sgemm_share_lstm_32",
         "sgemm_share_lstm_256",
+        "sgemm_share_gru_32",
+        "sgemm_share_elman_128",
+        "slowest_vs_torch",
+        "sweep_wall_ratio_gru_example",
+        "peak_rss_ratio_gru_256",
+        "saved_activations_ratio_elman_256",
     ],
     "study_growth.py": ["stored trials", "watch-loop pass ms", "per_trial_ms_at_1000"],
     "checkpoint_cost.py": [
         "checkpoint_bytes",
         "checkpoint_share_of_epoch",
         "epoch_ratio_with_checkpoint",
+    ],
+    "forecast_real_series.py": [
+        "RNN (best, retrained)",
+        "Holt-Winters",
+        "co2_mse_over_holt_winters",
+        "elnino_mse_over_seasonal_naive",
+        "sunspots_mse_over_persistence",
     ],
 }
 

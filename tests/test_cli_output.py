@@ -20,7 +20,7 @@ def _run(*args: str) -> tuple[str, str]:
 def test_the_final_line_is_logged_once(in_tmp: Path) -> None:
     spec = write_tiny_spec(in_tmp, trials=1, epochs=1)
     out, err = _run("run", spec.name, "--report", "page.html")
-    final = "tiny: 1/1 finished (1 complete, 0 stopped), 0 running, 0 failed; best "
+    final = "tiny: 1/1 done (1 finished, 0 stopped early), 0 running, 0 failed; best "
     assert [line for line in (out + err).splitlines() if line.startswith(final)] == [
         err.splitlines()[-1]  # the log ends with it; stdout does not repeat it
     ]
@@ -31,4 +31,6 @@ def test_queueing_only_logs_the_study_once(in_tmp: Path) -> None:
     spec = write_tiny_spec(in_tmp, trials=1, epochs=1)
     out, err = _run("run", spec.name, "--workers", "0")
     assert out == "start workers with: sweeper worker runs/tiny.db\n"
-    assert err == "tiny: 0/1 finished (0 complete, 0 stopped), 0 running, 0 failed; best -; ETA -\n"
+    assert (
+        err == "tiny: 0/1 done (0 finished, 0 stopped early), 0 running, 0 failed; best -; ETA -\n"
+    )

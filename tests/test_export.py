@@ -98,11 +98,17 @@ def test_csv_writes_two_files_with_exact_columns(location: str, tmp_path: Path) 
     assert epochs[0] == EPOCHS and len(epochs) == 4
     first, pruned, failed = (dict(zip(TRIALS, row, strict=True)) for row in trials[1:])
     assert (first["state"], first["value"], first["param_cell"], first["param_dropout"]) == (
-        "COMPLETE",
+        "finished",  # our word, not the storage library's COMPLETE
         "0.25",
         "lstm",
         "0.1",
     )
+    assert (pruned["state"], pruned["diverged"], pruned["param_dropout"]) == (
+        "diverged",
+        "true",
+        "",
+    )
+    assert (pruned["end_reason"], failed["state"]) == ("non-finite loss", "failed")
     assert (pruned["diverged"], pruned["param_dropout"], pruned["end_reason"]) == (
         "true",
         "",

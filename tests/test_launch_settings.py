@@ -36,7 +36,7 @@ def test_a_run_that_adds_no_trials_keeps_the_stored_budget(in_tmp: Path) -> None
     info, trials = _info("runs/tiny.db")
     assert info.budget == 2
     assert tally(trials).waiting == 0
-    assert _status_row("runs/tiny.db") == {"budget": "2", "complete": "2", "waiting": "0"}
+    assert _status_row("runs/tiny.db") == {"budget": "2", "finished": "2", "waiting": "0"}
 
 
 def _status_row(location: str) -> dict[str, str]:
@@ -45,7 +45,7 @@ def _status_row(location: str) -> dict[str, str]:
     header = [cell.strip() for cell in lines[2].strip("┃").split("┃")]
     row = [cell.strip() for cell in lines[4].strip("│").split("│")]
     cells = dict(zip(header, row, strict=True))
-    return {key: cells[key] for key in ("budget", "complete", "waiting")}
+    return {key: cells[key] for key in ("budget", "finished", "waiting")}
 
 
 def test_a_lower_trials_override_leaves_the_budget(in_tmp: Path) -> None:

@@ -32,7 +32,7 @@ def test_forward_shapes_and_state(cell: str, layers: int) -> None:
 @pytest.mark.parametrize("cell", CELLS)
 def test_build_model_uses_the_trial_parameters(cell: str) -> None:
     model = build_model(TrialParams(cell=cell, hidden=5, layers=3, dropout=0.25), 4, 9)
-    assert type(model.rnn) is MODULES[cell]
+    assert isinstance(model.rnn, MODULES[cell])  # ours subclass torch's (test_recurrence.py)
     assert model.rnn.batch_first
     assert (model.rnn.input_size, model.rnn.hidden_size, model.rnn.num_layers) == (4, 5, 3)
     assert model.rnn.dropout == 0.25

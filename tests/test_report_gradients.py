@@ -11,7 +11,6 @@ from benchmarks.synthetic_study import synthetic_trial
 from sweeper.report.collect import build_tables
 from sweeper.report.gradient_findings import advice, gradient_table
 from sweeper.report.ranking import pareto_front, ranked
-from sweeper.report.sections_choice import baseline_comparison
 from sweeper.training.epoch_record import EPOCH_FIELDS
 
 SPACE = {"lr": FloatDistribution(1e-4, 1.0, log=True), "clip": CategoricalDistribution([0.0, 1.0])}
@@ -125,7 +124,7 @@ def test_divergence_advice_names_high_lr_and_clipping_off() -> None:
     ]
     texts = _texts(_tables(calm + wild))
     (line,) = [t for t in texts if "diverged" in t]
-    assert line.startswith("3 of 9 finished trials diverged")
+    assert line.startswith("3 of the 9 trials that ran to an end diverged")
     assert "lower the top of the lr range" in line
     assert "3 of them ran with clipping off: turn clipping on" in line
 
@@ -152,15 +151,3 @@ def test_ranking_follows_the_direction_and_puts_unfinished_trials_last() -> None
     specs = [{"value": 1.0}, {"value": 3.0}, {"state": TrialState.FAIL}, {"value": 2.0}]
     assert [t.number for t in ranked(_tables(specs, "maximize"))] == [1, 3, 0, 2]
     assert [t.number for t in ranked(_tables(specs, "minimize"))] == [0, 3, 1, 2]
-
-
-def test_baseline_comparison_in_words() -> None:
-    attrs = {
-        "objective": "valid_loss",
-        "baseline": {"value": 0.2, "measure": "valid_loss", "description": "predict 1"},
-    }
-    tables = _tables([{"value": 0.05}], attrs=attrs)
-    text = baseline_comparison(tables, tables.completed()[0])
-    assert text == "Beats the baseline 0.2 (predict 1): valid_loss 0.05 is 75% lower."
-    worse = _tables([{"value": 0.3}], attrs=attrs)
-    assert baseline_comparison(worse, worse.completed()[0]).startswith("Does not beat")

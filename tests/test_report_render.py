@@ -141,31 +141,70 @@ def test_every_figure_has_a_slot_and_the_count_is_announced(hostile_page: str) -
     slots = re.findall(r'<div class="plot" id="([^"]+)">', hostile_page)
     assert sorted(slots) == sorted(figures)
     assert f'data-figures-expected="{len(figures)}"' in hostile_page
-    # Without telemetry the three gradient figures are notes; the other six are drawn.
-    assert len(figures) == 6
+    # Without telemetry the three gradient figures are notes, and without an unroll so is the
+    # memory figure; the other eight (two of them one per parameter) are drawn.
+    assert len(figures) == 8
 
 
-def test_section_titles_are_ours(hostile_page: str) -> None:
-    titles = re.findall(r"<h2>(.*?)</h2>", hostile_page)
-    assert titles == [
-        "Outcome",
-        "Trials, best first",
-        "What mattered",
-        "How the value responds",
-        "Learning curves",
-        "Gradient health",
-        "Cost and quality",
-        "Who ran what, when",
+# The page's questions in the order a person asks them (golden: a change here is a redesign).
+SECTIONS = [
+    ("choice", "What to use"),
+    ("stability", "Where training breaks"),
+    ("memory", "How much memory the task needs"),
+    ("cost", "What it cost"),
+    ("importance", "What mattered"),
+    ("search", "How the search went"),
+    ("operations", "Operations"),
+]
+HEADINGS = {
+    "choice": ["Against the baselines", "Spec fragment"],
+    "stability": [
+        "Learning rate against clip threshold",
+        "Does the threshold bite?",
+        "Norms across epochs",
+        "Diverged trials",
+    ],
+    "memory": [],
+    "cost": ["The frontier"],
+    "importance": ["Score against each parameter"],
+    "search": [
+        "Best so far",
+        "Coverage of the space",
+        "Curves of the leading trials",
+        "Every trial, best first",
+    ],
+    "operations": [
         "Failures",
+        "Interruptions",
         "Retries",
-        "The spec",
-    ]
+        "Who ran what, when",
+        "The stored spec",
+    ],
+}
+
+
+def test_sections_and_headings_come_in_the_order_of_the_questions(hostile_page: str) -> None:
+    found = re.findall(
+        r'<section id="([a-z]+)">\n<h2>(.*?)</h2>(.*?)</section>', hostile_page, re.S
+    )
+    assert [(anchor, title) for anchor, title, _ in found] == SECTIONS
+    for anchor, _, body in found:
+        assert re.findall(r"<h3>(.*?)</h3>", body) == HEADINGS[anchor], anchor
+    nav = re.search(r'<nav class="contents"[^>]*>(.*?)</nav>', hostile_page, re.S)
+    assert nav is not None
+    assert re.findall(r'<a href="#([a-z]+)">', nav.group(1)) == [a for a, _ in SECTIONS]
+
+
+def test_operations_are_folded(hostile_page: str) -> None:
+    operations = hostile_page[hostile_page.index('<section id="operations">') :]
+    assert '<details class="fold"><summary>' in operations
+    assert '<details class="fold" open' not in operations
 
 
 def test_an_empty_study_renders_and_says_what_is_missing(tmp_path: Path) -> None:
     page = _page(_study(tmp_path / "e.db", "empty", []))
     assert "The study has no trials yet." in page
-    assert "No completed trial yet" in page
+    assert "No finished trial yet" in page
     assert "needs at least 8 completed trials; the study has 0" in page
     assert "No trial has started yet." in page
     assert _figures(page) == {}
@@ -179,8 +218,8 @@ def test_a_study_of_failures_only_renders(tmp_path: Path) -> None:
     ]
     page = _page(_study(tmp_path / "f.db", "failed", trials))
     assert page.count("<td>shape mismatch</td>") == 3
-    assert "none yet" in page and "No trial has completed with a finite value." in page
-    assert "No trial with clipping on has a value yet." in page or "No gradient telemetry" in page
+    assert "No trial has finished with a finite value yet, so there is nothing to choose." in page
+    assert "No gradient telemetry was recorded for this study." in page
 
 
 def test_a_single_trial_renders(tmp_path: Path) -> None:
@@ -190,8 +229,8 @@ def test_a_single_trial_renders(tmp_path: Path) -> None:
     )
     page = _page(_study(tmp_path / "one.db", "one", [trial]))
     assert "needs at least 8 completed trials; the study has 1" in page
-    assert "Searched but held at one value: lr." in page
-    assert "A map needs two searched parameters" in page
+    assert "Held at one value in every finished trial: lr." in page
+    assert "No searched parameter took more than one value." in page
     assert "figure-curves" in _figures(page)
 
 
@@ -207,8 +246,7 @@ def test_a_parameter_with_a_single_value_renders(tmp_path: Path) -> None:
         for i in range(16)
     ]
     page = _page(_study(tmp_path / "v.db", "single", trials))
-    assert "Held at one value in every completed trial: cell." in page
-    assert "Searched but held at one value: cell." in page
+    assert "Held at one value in every finished trial: cell." in page
     assert "figure-importance" in _figures(page)
 
 
@@ -218,7 +256,7 @@ def test_build_report_writes_a_whole_page(tmp_path: Path) -> None:
     output = build_report(str(location), tmp_path / "out" / "summary.html")
     page = output.read_text(encoding="utf-8")
     assert page.startswith("<!doctype html>") and page.rstrip().endswith("</html>")
-    assert len(_figures(page)) == 9
+    assert len(_figures(page)) == 15
     assert [p.name for p in output.parent.iterdir()] == ["summary.html"]  # nothing left
 
 

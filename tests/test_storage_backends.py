@@ -31,7 +31,7 @@ def test_sweep_status_report_export(in_tmp: Path, storage_location: str) -> None
         (n, e) for n in range(3) for e in (1, 2)
     ]
     status = invoke("status", storage_location)
-    assert status.exit_code == 0 and "complete" in status.output
+    assert status.exit_code == 0 and "finished" in status.output
     assert (in_tmp / "s.html").stat().st_size > 1_000_000
     exported = invoke("export", storage_location, "--format", "json", "-o", "flat.json")
     assert exported.exit_code == 0, exported.output

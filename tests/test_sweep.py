@@ -72,7 +72,7 @@ def test_storage_override_and_status(in_tmp: Path) -> None:
     assert (in_tmp / "elsewhere" / "study.db").exists()
     status = invoke("status", "elsewhere/study.db")
     assert status.exit_code == 0
-    assert "complete" in status.output and "best" in status.output
+    assert "finished" in status.output and "best" in status.output
 
 
 @pytest.mark.slow

@@ -44,15 +44,17 @@ def test_split_is_chronological_and_scaling_uses_training_rows_only(tmp_path):
     valid = task.input_scaling.invert(task.data("valid").inputs.double().numpy())
     np.testing.assert_allclose(train[0], raw[0:10], atol=1e-5)
     np.testing.assert_allclose(train[-1], raw[75:85], atol=1e-5)  # last start 90 - 10 - 1
-    np.testing.assert_allclose(valid[0], raw[90:100], atol=1e-5)
-    assert len(task.data("valid")) == len(range(90, 120 - 11 + 1, 5))
+    # validation scores origins 89..118 (targets 90..119), five per sequence, warmed on the
+    # five rows before them: the first sequence reads rows 84..93
+    np.testing.assert_allclose(valid[0], raw[84:94], atol=1e-5)
+    assert len(task.data("valid")) == 6
 
 
 def test_windows_reach_the_end_of_each_split(tmp_path):
     raw = write_csv(tmp_path, rows=120)
     task = series(tmp_path, window=10, stride=1, valid_fraction=0.25)
     assert len(task.data("train")) == 90 - 11 + 1
-    assert len(task.data("valid")) == 30 - 11 + 1
+    assert len(task.data("valid")) == 6  # 30 rows scored, 5 per sequence: stride is training's
     last_target = task.target_scaling.invert(task.data("valid").targets[-1, -1].double().numpy())
     np.testing.assert_allclose(last_target, raw[-1], rtol=1e-5)
 
@@ -70,11 +72,7 @@ def test_persistence_baseline_equals_hand_computation(tmp_path):
     raw = write_csv(tmp_path, rows=100)
     task = series(tmp_path, window=6, horizon=2, stride=4, valid_fraction=0.3)
     scaled = (raw - raw[:70].mean(axis=0)) / raw[:70].std(axis=0)
-    errors = [
-        (scaled[s + k] - scaled[s + 2 + k]) ** 2
-        for s in range(70, 100 - 8 + 1, 4)
-        for k in range(6)
-    ]
+    errors = [(scaled[r - 2] - scaled[r]) ** 2 for r in range(70, 100)]  # every row once
     baseline = task.baseline()
     assert baseline.value == pytest.approx(float(np.mean(errors)), rel=1e-5)
     assert baseline.measure == "valid_loss"
@@ -124,8 +122,8 @@ def test_non_numeric_cell_names_row_and_cell(tmp_path):
 def test_ragged_row_and_too_long_window(tmp_path):
     write_csv(tmp_path, rows=40)
     with pytest.raises(SpecError) as caught:
-        series(tmp_path, window=8)  # validation has 8 rows; a window needs 9
-    check_error(caught, "task.window", "validation", "8 rows")
+        series(tmp_path, window=32)  # training has 32 rows; a window needs 33
+    check_error(caught, "task.window", "training", "32 rows")
     path = tmp_path / "readings.csv"
     path.write_text(path.read_text() + "day40,1.0\n")
     with pytest.raises(SpecError) as caught:

@@ -28,6 +28,7 @@ from sweeper.store.attrs import StoredBaseline, StoredFailure, StudyInfo, TrialI
 from sweeper.store.connect import open_storage, redact
 from sweeper.store.epoch_rows import read_epochs
 from sweeper.store.tables import EPOCHS
+from sweeper.store.trial_words import trial_word
 from sweeper.training.epoch_record import EPOCH_FIELDS
 
 STATES = ("COMPLETE", "PRUNED", "FAIL", "RUNNING", "WAITING")
@@ -57,6 +58,7 @@ class StudySummary:
     workers_planned: int | None
     spec_text: str
     spec_hash: str
+    spec_source: str = ""  # the spec file's absolute path: relative data paths start there
 
 
 @dataclass(frozen=True)
@@ -71,7 +73,8 @@ class TrialRow:
     """One trial, flattened. ``value`` is NaN when the trial has none."""
 
     number: int
-    state: str
+    state: str  # optuna's state name; show ``word`` instead
+    word: str  # the state in our words (store.trial_words)
     value: float
     params: dict[str, Any]
     distributions: dict[str, BaseDistribution]
@@ -87,6 +90,7 @@ class TrialRow:
     seed: int | None
     clip: float  # NaN when unknown; 0 means clipping off
     lr: float
+    unroll: float  # truncated-BPTT window in steps; NaN when unknown
     curve: tuple[tuple[int, float], ...]  # (step, objective) as reported per epoch
     confirms: int | None = None  # a confirmation trial: the searched trial it repeats
 
@@ -212,6 +216,7 @@ def _summary(
         workers_planned=info.workers,
         spec_text=_text(info.spec_text),
         spec_hash=_text(info.spec_hash),
+        spec_source=info.spec_source,
     )
 
 
@@ -231,6 +236,7 @@ def _trial_row(trial: FrozenTrial) -> TrialRow:
     return TrialRow(
         number=trial.number,
         state=trial.state.name,
+        word=trial_word(trial),
         value=_float(trial.value),
         params={_text(k): _param_value(v) for k, v in trial.params.items()},
         distributions={_text(k): _redacted(v) for k, v in trial.distributions.items()},
@@ -246,6 +252,7 @@ def _trial_row(trial: FrozenTrial) -> TrialRow:
         seed=info.seed,
         clip=_float(trial.params.get("clip", training.get("clip"))),
         lr=_float(trial.params.get("lr", training.get("lr"))),
+        unroll=_float(trial.params.get("unroll", training.get("unroll"))),
         curve=tuple(sorted((int(k), _float(v)) for k, v in trial.intermediate_values.items())),
         confirms=info.confirms,
     )

@@ -106,7 +106,7 @@ def _trial_record(trial: TrialRow, params: Sequence[ParamInfo]) -> dict[str, Any
     failure = trial.failure
     record: dict[str, Any] = {
         "number": trial.number,
-        "state": trial.state,
+        "state": trial.word,
         "value": _number(trial.value),
         "epochs": trial.epochs,
         "seconds": _number(trial.seconds),

@@ -15,33 +15,24 @@ from sweeper.report.ranking import leaders
 from sweeper.report.theme import (
     INK,
     MUTED,
-    SERIES,
-    STATE_COLOURS,
+    RANKS,
+    RED,
     Drawn,
     Missing,
     axis,
     hover,
     layout,
     numbers,
+    outcome_marker,
 )
+from sweeper.store import trial_words as words
 
 JITTER = 0.04  # decades; spreads trials that share a clip value
 CURVES_PER_GROUP = 5
-KEYS = (
-    ("COMPLETE", "completed"),
-    ("PRUNED", "stopped early"),
-    ("DIVERGED", "diverged"),
-    ("FAIL", "failed"),
-    ("RUNNING", "running"),
-)
-
-
-def _key(row: TrialGradients) -> str:
-    return "DIVERGED" if row.diverged else row.state
 
 
 def _groups(rows: Sequence[TrialGradients]) -> list[tuple[str, str, list[TrialGradients]]]:
-    found = [(key, name, [r for r in rows if _key(r) == key]) for key, name in KEYS]
+    found = [(word, word, [r for r in rows if r.state == word]) for word in words.WORDS]
     return [(key, name, group) for key, name, group in found if group]
 
 
@@ -54,7 +45,7 @@ def _points(
         customdata=data,
         mode="markers",
         name=name,
-        marker={"color": STATE_COLOURS[key], "size": 7, "opacity": 0.7},
+        marker={**outcome_marker(key), "opacity": 0.75},
         **hover(template),
     )
 
@@ -81,8 +72,8 @@ def norm_clip_figure(rows: Sequence[TrialGradients]) -> Drawn:
         traces,
         layout(
             height=420,
-            xaxis=axis("clip threshold (0 = off, drawn at the left)", log=True),
-            yaxis=axis("peak p95 pre-clip norm", log=True),
+            xaxis=axis("clip threshold", log=True, values=[*thresholds, off_x]),
+            yaxis=axis("peak p95 pre-clip norm", log=True, values=[r.peak_p95 for r in usable]),
         ),
     )
     if thresholds:
@@ -111,28 +102,6 @@ def _diagonal(low: float, high: float) -> go.Scatter:
     )
 
 
-def clip_rate_figure(tables: StudyTables, rows: Sequence[TrialGradients]) -> Drawn:
-    """Share of steps clipped against the trial's value: do the good trials lean on clipping?"""
-    usable = [r for r in rows if r.clip > 0 and math.isfinite(r.value)]
-    if not usable:
-        return Missing("No trial with clipping on has a value yet.")
-    template = "trial #%{customdata}: clipped %{x:.0%} of steps<br>value %{y:.4g}"
-    traces = [
-        _points(
-            name,
-            key,
-            numbers(r.clip_rate for r in group),
-            numbers(r.value for r in group),
-            np.array([r.number for r in group], dtype=np.int32),
-            template,
-        )
-        for key, name, group in _groups(usable)
-    ]
-    objective = label(tables.summary.objective or "value")
-    share = axis("share of steps clipped", tickformat=".0%", range=[-0.03, 1.03])
-    return go.Figure(traces, layout(height=380, xaxis=share, yaxis=axis(objective)))
-
-
 def _picks(tables: StudyTables, rows: Sequence[TrialGradients]) -> dict[int, str]:
     """The trials whose norm curves are drawn, each with why."""
     picks: dict[int, str] = {}
@@ -147,6 +116,13 @@ def _picks(tables: StudyTables, rows: Sequence[TrialGradients]) -> dict[int, str
         for row in group[:CURVES_PER_GROUP]:
             picks.setdefault(row.number, why)
     return picks
+
+
+def _curve_colour(why: str, index: int) -> str:
+    # leaders come first in the picks, so their index is their rank
+    if why == "leader":
+        return RANKS[index % len(RANKS)]
+    return RED if why == "diverged" else INK
 
 
 def norm_curves_figure(tables: StudyTables, rows: Sequence[TrialGradients]) -> Drawn:
@@ -164,11 +140,12 @@ def norm_curves_figure(tables: StudyTables, rows: Sequence[TrialGradients]) -> D
                 y=np.where(np.isfinite(norms) & (norms > 0), norms, np.nan),
                 mode="lines+markers",
                 name=label(f"trial {number} ({why})"),
-                line={"color": SERIES[index % len(SERIES)], "width": 2, "dash": dash},
+                line={"color": _curve_colour(why, index), "width": 2, "dash": dash},
                 marker={"size": 4},
             )
         )
     if not traces:
         return Missing("No per-epoch gradient norms to draw.")
-    norm_axis = axis("median pre-clip norm", log=True)
+    shown = [v for trace in traces for v in trace.y]
+    norm_axis = axis("median pre-clip norm", log=True, values=shown)
     return go.Figure(traces, layout(height=400, xaxis=axis("epoch"), yaxis=norm_axis))

@@ -8,7 +8,6 @@ from typing import Any
 
 import numpy as np
 import plotly.graph_objects as go
-from plotly.subplots import make_subplots
 
 from sweeper.report.collect import ParamInfo, StudyTables, TrialRow
 from sweeper.report.escape import label, template_label
@@ -17,6 +16,7 @@ from sweeper.report.ranking import best
 from sweeper.report.theme import (
     AMBER,
     INK,
+    SLATE,
     TEAL,
     Drawn,
     Missing,
@@ -24,12 +24,7 @@ from sweeper.report.theme import (
     hover,
     layout,
     numbers,
-    value_scale,
 )
-
-COLUMNS = 3
-PAIR_BINS = 8
-MIN_PAIR_TRIALS = 4
 
 
 def importance_figure(result: ImportanceResult) -> Drawn:
@@ -42,7 +37,7 @@ def importance_figure(result: ImportanceResult) -> Drawn:
         x=shares,
         y=[label(r.name) for r in rows],
         orientation="h",
-        marker={"color": TEAL},
+        marker={"color": SLATE},
         error_x={
             "type": "data",
             "symmetric": False,
@@ -62,7 +57,7 @@ def importance_figure(result: ImportanceResult) -> Drawn:
         layout(
             height=height,
             xaxis=axis("share of importance", tickformat=".0%", rangemode="tozero"),
-            yaxis=axis("", autorange="reversed"),
+            yaxis=axis("parameter", autorange="reversed"),
             showlegend=False,
         ),
     )
@@ -72,54 +67,55 @@ def varying(tables: StudyTables) -> list[ParamInfo]:
     return [p for p in tables.params if p.varies]
 
 
-def response_figure(tables: StudyTables) -> Drawn:
-    """One panel per varying parameter: the value of every completed trial against it."""
+def response_figures(tables: StudyTables) -> list[tuple[str, Drawn]]:
+    """A small figure per varying parameter, most important first: every finished trial's
+    value against it. Separate figures, so that the page lays them out for its width."""
     done = tables.completed()
     params = varying(tables)
     if not done:
-        return Missing("No completed trial yet, so there is no response to show.")
+        return [("response", Missing("No finished trial yet, so there is no response to show."))]
     if not params:
-        return Missing("No searched parameter took more than one value.")
-    rows = math.ceil(len(params) / COLUMNS)
-    cols = min(COLUMNS, len(params))
-    fig = make_subplots(rows=rows, cols=cols, horizontal_spacing=0.08, vertical_spacing=0.16)
+        return [("response", Missing("No searched parameter took more than one value."))]
     leader = best(tables)
-    for index, info in enumerate(params):
-        _response_panel(fig, info, done, leader, index // cols + 1, index % cols + 1)
-    fig.update_layout(layout(height=80 + 260 * rows, showlegend=False))
-    fig.update_yaxes(axis("", log=_wide(v.value for v in done)))
-    return fig
+    objective = label(tables.summary.objective or "value")
+    values = [t.value for t in done]
+    y_axis = axis(objective, log=_wide(values), values=values)
+    return [(info.name, _response_panel(info, done, leader, y_axis)) for info in params]
 
 
 def _response_panel(
-    fig: go.Figure,
     info: ParamInfo,
     done: Sequence[TrialRow],
     leader: TrialRow | None,
-    row: int,
-    col: int,
-) -> None:
+    y_axis: dict[str, Any],
+) -> go.Figure:
     used = [t for t in done if info.name in t.params]
     others = [t for t in used if leader is None or t.number != leader.number]
     tops = [t for t in used if leader is not None and t.number == leader.number]
     name = template_label(info.name)
     x_format = "" if info.kind == "categorical" else ":.4g"
     template = f"trial #%{{customdata}}<br>{name} %{{x{x_format}}}<br>value %{{y:.4g}}"
-    for group, colour, size in ((others, TEAL, 6), (tops, AMBER, 10)):
-        if group:
-            fig.add_trace(
-                go.Scatter(
-                    x=_xs(info, [t.params[info.name] for t in group]),
-                    y=numbers(t.value for t in group),
-                    customdata=np.array([t.number for t in group], dtype=np.int32),
-                    mode="markers",
-                    marker={"color": colour, "size": size, "opacity": 0.75},
-                    **hover(template),
-                ),
-                row=row,
-                col=col,
-            )
-    fig.update_xaxes(_param_axis(info), row=row, col=col)
+    traces = [
+        go.Scatter(
+            x=_xs(info, [t.params[info.name] for t in group]),
+            y=numbers(t.value for t in group),
+            customdata=np.array([t.number for t in group], dtype=np.int32),
+            mode="markers",
+            marker={"color": colour, "size": size, "opacity": 0.75},
+            **hover(template),
+        )
+        for group, colour, size in ((others, TEAL, 6), (tops, AMBER, 11))
+        if group
+    ]
+    return go.Figure(
+        traces,
+        layout(
+            height=280,
+            showlegend=False,
+            xaxis=_param_axis(info, [t.params[info.name] for t in used]),
+            yaxis=y_axis,
+        ),
+    )
 
 
 def _xs(info: ParamInfo, values: Sequence[Any]) -> Any:
@@ -133,97 +129,14 @@ def _x(info: ParamInfo, value: Any) -> Any:
     return label(value) if info.kind == "categorical" else value
 
 
-def _param_axis(info: ParamInfo) -> dict[str, Any]:
+def _param_axis(info: ParamInfo, values: Sequence[Any] = ()) -> dict[str, Any]:
     if info.kind == "categorical":
         order = [label(c) for c in info.choices]
         return axis(label(info.name), type="category", categoryorder="array", categoryarray=order)
-    return axis(label(info.name), log=info.log)
+    return axis(label(info.name), log=info.log, values=values)
 
 
 def _wide(values: Any) -> bool:
     """Whether positive values span more than two orders of magnitude (then use a log axis)."""
     finite = np.array([v for v in values if math.isfinite(v)])
     return bool(finite.size and finite.min() > 0 and finite.max() / finite.min() > 100)
-
-
-def strongest_pair(
-    tables: StudyTables, result: ImportanceResult
-) -> tuple[ParamInfo, ParamInfo] | None:
-    """The two most important varying parameters (by name order when importance is missing)."""
-    infos = {p.name: p for p in varying(tables)}
-    ranked = [r.name for r in result.rows if r.name in infos] or sorted(infos)
-    if len(ranked) < 2:
-        return None
-    return infos[ranked[0]], infos[ranked[1]]
-
-
-def pair_figure(tables: StudyTables, result: ImportanceResult) -> Drawn:
-    """Median value over a grid of the strongest pair, with every trial drawn on top."""
-    pair = strongest_pair(tables, result)
-    if pair is None:
-        return Missing("A map needs two searched parameters that took more than one value.")
-    a, b = pair
-    done = [t for t in tables.completed() if a.name in t.params and b.name in t.params]
-    if len(done) < MIN_PAIR_TRIALS:
-        return Missing(
-            f"A map needs {MIN_PAIR_TRIALS} completed trials that set both {a.name} and {b.name}."
-        )
-    xa, xb = _bins(a, [t.params[a.name] for t in done]), _bins(b, [t.params[b.name] for t in done])
-    grid = _binned_median(done, a, b, xa, xb)
-    heat = go.Heatmap(
-        x=xa.axis,
-        y=xb.axis,
-        z=grid,
-        **value_scale(tables.summary.direction),
-        colorbar={"title": {"text": "median value"}},
-        hoverongaps=False,
-        hoverinfo="z",
-    )
-    dots = go.Scatter(
-        x=_xs(a, [t.params[a.name] for t in done]),
-        y=_xs(b, [t.params[b.name] for t in done]),
-        customdata=np.array([[t.number, t.value] for t in done], dtype=np.float64),
-        mode="markers",
-        marker={"color": INK, "size": 4, "opacity": 0.55},
-        **hover("trial #%{customdata[0]}: value %{customdata[1]:.4g}"),
-    )
-    return go.Figure(
-        [heat, dots],
-        layout(height=460, xaxis=_param_axis(a), yaxis=_param_axis(b), showlegend=False),
-    )
-
-
-class _Binning:
-    """Where each trial falls along one parameter, and what the heatmap's axis shows."""
-
-    def __init__(self, index: np.ndarray, axis: list[Any], count: int) -> None:
-        self.index, self.axis, self.count = index, axis, count
-
-
-def _bins(info: ParamInfo, values: Sequence[Any]) -> _Binning:
-    if info.kind == "categorical":
-        order = [label(c) for c in info.choices]
-        lookup = {name: i for i, name in enumerate(order)}
-        index = np.array([lookup.get(label(v), 0) for v in values])
-        return _Binning(index, order, len(order))
-    data = np.array(values, dtype=float)
-    scaled = np.log10(data) if info.log else data
-    low, high = float(scaled.min()), float(scaled.max())
-    if high == low:  # these trials all share one value; give the single column some width
-        low, high = low - 0.5, high + 0.5
-    edges = np.linspace(low, high, PAIR_BINS + 1)
-    index = np.clip(np.searchsorted(edges, scaled, side="right") - 1, 0, PAIR_BINS - 1)
-    shown = 10**edges if info.log else edges
-    return _Binning(index, list(shown), PAIR_BINS)
-
-
-def _binned_median(
-    done: Sequence[TrialRow], a: ParamInfo, b: ParamInfo, xa: _Binning, xb: _Binning
-) -> list[list[float | None]]:
-    cells: dict[tuple[int, int], list[float]] = {}
-    for trial, i, j in zip(done, xa.index, xb.index, strict=True):
-        cells.setdefault((int(j), int(i)), []).append(trial.value)
-    return [
-        [float(np.median(cells[(j, i)])) if (j, i) in cells else None for i in range(xa.count)]
-        for j in range(xb.count)
-    ]

@@ -11,12 +11,13 @@ import plotly.graph_objects as go
 
 from sweeper.report.collect import StudyTables, TrialRow
 from sweeper.report.escape import label
-from sweeper.report.ranking import leaders, pareto_front, state_key, state_label
+from sweeper.report.ranking import leaders, pareto_front, state_label
 from sweeper.report.theme import (
     AMBER,
-    BRICK,
+    BASELINE_LINE,
     MUTED,
-    SERIES,
+    RANKS,
+    RED,
     STATE_COLOURS,
     Drawn,
     Missing,
@@ -25,6 +26,7 @@ from sweeper.report.theme import (
     layout,
     numbers,
 )
+from sweeper.store import trial_words as words
 
 LEADERS = 5
 STOPPED_SHOWN = 40
@@ -32,7 +34,7 @@ STOPPED_SHOWN = 40
 
 def stopped_sample(tables: StudyTables) -> tuple[list[TrialRow], int]:
     """Up to STOPPED_SHOWN stopped-early trials spread evenly over the study, and how many exist."""
-    stopped = [t for t in tables.trials if t.state == "PRUNED" and not t.diverged and t.curve]
+    stopped = [t for t in tables.trials if t.word == words.STOPPED and t.curve]
     if len(stopped) <= STOPPED_SHOWN:
         return stopped, len(stopped)
     step = len(stopped) / STOPPED_SHOWN
@@ -56,27 +58,42 @@ def _joined(trials: Sequence[TrialRow]) -> tuple[np.ndarray, np.ndarray, np.ndar
 
 
 def curves_figure(tables: StudyTables) -> Drawn:
-    """Per-epoch objective of the leaders, of a sample of stopped trials and of diverged ones."""
+    """Per-epoch objective of the leaders, of a sample of stopped trials and of diverged ones,
+    with the task's baseline as a line where it is on the objective's scale."""
     top = [t for t in leaders(tables, LEADERS) if t.curve]
     stopped, _ = stopped_sample(tables)
     diverged = [t for t in tables.trials if t.diverged and t.curve][:STOPPED_SHOWN]
     if not (top or stopped or diverged):
         return Missing("No trial reported a value per epoch yet.")
     traces = []
-    for group, colour, name in ((stopped, MUTED, "stopped early"), (diverged, BRICK, "diverged")):
+    for group, colour, name in ((stopped, MUTED, words.STOPPED), (diverged, RED, words.DIVERGED)):
         if group:
             traces.append(_lines(_joined(group), name, colour, 1.0, 0.55))
     for rank, trial in enumerate(top):
         name = f"#{rank + 1}: trial {trial.number}"
-        traces.append(_lines(_joined([trial]), name, SERIES[rank % len(SERIES)], 2.4, 1.0))
+        traces.append(_lines(_joined([trial]), name, RANKS[rank % len(RANKS)], 2.4, 1.0))
     values = [v for t in (*top, *stopped, *diverged) for _, v in t.curve]
+    base = tables.summary.baseline
+    epochs = [s for t in (*top, *stopped, *diverged) for s, _ in t.curve]
+    if base is not None and base.measure == tables.summary.objective and epochs:
+        traces.append(
+            go.Scatter(
+                x=[min(epochs), max(epochs)],
+                y=[base.value, base.value],
+                mode="lines",
+                name=label(f"baseline {base.value:.4g}"),
+                line=BASELINE_LINE,
+                hoverinfo="skip",
+            )
+        )
+        values.append(base.value)
     objective = label(tables.summary.objective or "value")
     return go.Figure(
         traces,
         layout(
             height=420,
             xaxis=axis("epoch"),
-            yaxis=axis(objective, log=_positive_wide(values)),
+            yaxis=axis(objective, log=_positive_wide(values), values=values),
         ),
     )
 
@@ -119,8 +136,8 @@ def cost_figure(tables: StudyTables) -> Drawn:
         y=numbers(t.value for t in done),
         customdata=np.array([t.number for t in done], dtype=np.int32),
         mode="markers",
-        name="completed trials",
-        marker={"color": STATE_COLOURS["COMPLETE"], "size": 6, "opacity": 0.6},
+        name="finished trials",
+        marker={"color": STATE_COLOURS[words.FINISHED], "size": 6, "opacity": 0.6},
         **hover(template),
     )
     edge = go.Scatter(
@@ -134,8 +151,9 @@ def cost_figure(tables: StudyTables) -> Drawn:
         **hover(template),
     )
     objective = label(tables.summary.objective or "value")
-    x_axis = axis("compute seconds", log=_positive_wide([t.seconds for t in done]))
-    y_axis = axis(objective, log=_positive_wide([t.value for t in done]))
+    seconds, values = [t.seconds for t in done], [t.value for t in done]
+    x_axis = axis("compute seconds", log=_positive_wide(seconds), values=seconds)
+    y_axis = axis(objective, log=_positive_wide(values), values=values)
     return go.Figure([dots, edge], layout(height=400, xaxis=x_axis, yaxis=y_axis))
 
 
@@ -149,7 +167,7 @@ def timeline_figure(tables: StudyTables) -> Drawn:
     lane_of = {name: i for i, name in enumerate(lanes)}
     groups: dict[str, list[TrialRow]] = {}
     for trial in timed:
-        groups.setdefault(state_key(trial), []).append(trial)
+        groups.setdefault(state_label(trial), []).append(trial)
     traces = [t for key, rows in groups.items() for t in _lane_traces(key, rows, latest, lane_of)]
     lane_axis = axis(
         "worker",

@@ -23,7 +23,7 @@ class TrialGradients:
     """One trial's pre-clip gradient norms summarised over its epochs (NaN when unknown)."""
 
     number: int
-    state: str
+    state: str  # our word (store.trial_words)
     diverged: bool
     value: float
     clip: float
@@ -63,7 +63,7 @@ def _summarise(trial: TrialRow, s: dict[str, np.ndarray]) -> TrialGradients:
     )
     return TrialGradients(
         number=trial.number,
-        state=trial.state,
+        state=trial.word,
         diverged=trial.diverged,
         value=trial.value,
         clip=trial.clip,
@@ -165,7 +165,10 @@ def _divergence_advice(tables: StudyTables) -> list[Advice]:
     diverged = [t for t in finished if t.diverged]
     if not diverged:
         return []
-    text = f"{len(diverged)} of {len(finished)} finished trials diverged (non-finite loss)."
+    text = (
+        f"{len(diverged)} of the {len(finished)} trials that ran to an end diverged "
+        "(non-finite loss)."
+    )
     lr_div = [t.lr for t in diverged if math.isfinite(t.lr)]
     lr_rest = [t.lr for t in finished if not t.diverged and math.isfinite(t.lr)]
     if lr_div and lr_rest and np.median(lr_div) > np.percentile(lr_rest, 75):

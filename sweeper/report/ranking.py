@@ -11,15 +11,8 @@ _STATE_ORDER = {"COMPLETE": 0, "PRUNED": 1, "RUNNING": 2, "WAITING": 3, "FAIL": 
 
 
 def state_label(row: TrialRow) -> str:
-    """The state as the page names it; a pruned trial either stopped early or diverged."""
-    if row.state == "PRUNED":
-        return "diverged" if row.diverged else "stopped early"
-    return {"COMPLETE": "completed", "FAIL": "failed"}.get(row.state, row.state.lower())
-
-
-def state_key(row: TrialRow) -> str:
-    """The colour key of a trial (theme.STATE_COLOURS)."""
-    return "DIVERGED" if row.diverged else row.state
+    """The state as the page names it (store.trial_words), also the key of its colour."""
+    return row.word
 
 
 def sort_key(direction: str, value: float) -> float:

@@ -14,34 +14,32 @@ import plotly.offline
 
 from sweeper.report.collect import StudyTables, read_study
 from sweeper.report.escape import esc, script_json
-from sweeper.report.html_parts import FigureBook, missing, section
+from sweeper.report.html_parts import FigureBook
 from sweeper.report.importance import REPLICATES, param_importance
 from sweeper.report.new_file import create_beside
-from sweeper.report.sections_choice import outcome_section, ranked_section
-from sweeper.report.sections_gradients import gradients_section
-from sweeper.report.sections_operations import failures_section, retries_section
+from sweeper.report.sections_choice import baselines_of, choice_section, chosen_from_trials
+from sweeper.report.sections_gradients import stability_section
+from sweeper.report.sections_operations import operations_section
 from sweeper.report.sections_search import (
     cost_section,
-    curves_section,
     importance_section,
-    response_section,
-    timeline_section,
+    memory_section,
+    search_section,
 )
+from sweeper.report.series_baselines import series_baselines
 from sweeper.results.summary_stamp import SummaryStamp, now_utc
 from sweeper.store.faults import page_disk_full
 
+# The questions the page answers, in the order a person training recurrent networks asks
+# them: (anchor, link text in the navigation).
 CONTENTS = (
-    ("outcome", "Outcome"),
-    ("ranked", "Ranked trials"),
+    ("choice", "What to use"),
+    ("stability", "Where it breaks"),
+    ("memory", "Memory"),
+    ("cost", "Cost"),
     ("importance", "What mattered"),
-    ("response", "Response"),
-    ("curves", "Learning curves"),
-    ("gradients", "Gradient health"),
-    ("cost", "Cost and quality"),
-    ("timeline", "Timeline"),
-    ("failures", "Failures"),
-    ("retries", "Retries"),
-    ("spec", "Spec"),
+    ("search", "The search"),
+    ("operations", "Operations"),
 )
 
 
@@ -90,18 +88,15 @@ def render_page(tables: StudyTables, *, replicates: int = REPLICATES, seed: int 
     stamp = summary_stamp(tables)
     book = FigureBook()
     result = param_importance(tables, replicates=replicates, seed=seed)
+    chosen = chosen_from_trials(tables)
     sections = [
-        outcome_section(tables),
-        ranked_section(tables),
-        importance_section(tables, result, book),
-        response_section(tables, result, book),
-        curves_section(tables, book),
-        gradients_section(tables, book),
+        choice_section(tables, chosen, baselines_of(tables) + series_baselines(tables, chosen)),
+        stability_section(tables, book),
+        memory_section(tables, book),
         cost_section(tables, book),
-        timeline_section(tables, book),
-        failures_section(tables),
-        retries_section(tables),
-        spec_section(tables),
+        importance_section(tables, result, book),
+        search_section(tables, book),
+        operations_section(tables, book),
     ]
     page_js = _resource("summary.js")
     plotly_js = plotly.offline.get_plotlyjs()
@@ -156,19 +151,7 @@ def _resource(name: str) -> str:
 
 def _subheading(tables: StudyTables) -> str:
     s = tables.summary
-    goal = f"{s.direction} {s.objective or 'value'}"
+    better = "lower" if s.direction == "minimize" else "higher"
+    goal = f"{s.objective or 'value'}, {better} is better"
     task = f"task {s.task}" if s.task else "no task recorded"
     return f"{goal} · {task} · {len(tables.trials)} trials"
-
-
-def spec_section(tables: StudyTables) -> str:
-    text = tables.summary.spec_text
-    if not text:
-        return section("spec", "The spec", missing("The study does not store its spec."))
-    digest = f" (hash {tables.summary.spec_hash})" if tables.summary.spec_hash else ""
-    return section(
-        "spec",
-        "The spec",
-        f"<details><summary>{esc('Spec stored in the study' + digest)}</summary>"
-        f"<pre>{esc(text)}</pre></details>",
-    )

@@ -1,4 +1,4 @@
-"""The gradients section: pre-clip norms against the threshold, clip rates, diverged trials."""
+"""Where training breaks: the stability map, the gradient findings in words, diverged trials."""
 
 from __future__ import annotations
 
@@ -8,39 +8,43 @@ import numpy as np
 
 from sweeper.report.collect import StudyTables
 from sweeper.report.escape import esc
-from sweeper.report.figures_gradients import clip_rate_figure, norm_clip_figure, norm_curves_figure
-from sweeper.report.gradient_findings import advice, gradient_table
+from sweeper.report.figures_gradients import norm_clip_figure, norm_curves_figure
+from sweeper.report.figures_stability import stability_figure
+from sweeper.report.gradient_findings import MOSTLY_CLIPPED, advice, gradient_table
 from sweeper.report.html_parts import Cell, FigureBook, missing, num, section, table
 
 
-def gradients_section(tables: StudyTables, book: FigureBook) -> str:
+def stability_section(tables: StudyTables, book: FigureBook) -> str:
     rows = gradient_table(tables)
     items = "".join(f'<li class="{esc(a.level)}">{esc(a.text)}</li>' for a in advice(tables, rows))
     parts = [
         f'<ul class="advice">{items}</ul>',
-        "<h3>Pre-clip norm against the clip threshold</h3>",
+        "<h3>Learning rate against clip threshold</h3>",
+        book.slot(
+            "stability",
+            stability_figure(rows),
+            "Each mark is a trial: a red cross diverged, an olive square clipped more than "
+            f"{MOSTLY_CLIPPED:.0%} of its steps (the threshold set its step size), a teal "
+            "circle trained without either.",
+        ),
+        "<h3>Does the threshold bite?</h3>",
         book.slot(
             "norm-clip",
             norm_clip_figure(rows),
-            "Each point is a trial: the largest per-epoch 95th percentile of its pre-clip "
+            "Each mark is a trial: the largest per-epoch 95th percentile of its pre-clip "
             "global norm. Above the dotted line the threshold cuts most large steps.",
-        ),
-        "<h3>How often trials clip</h3>",
-        book.slot(
-            "clip-rate",
-            clip_rate_figure(tables, rows),
-            "Share of optimizer steps clipped, against the trial's value.",
         ),
         "<h3>Norms across epochs</h3>",
         book.slot(
             "norm-curves",
             norm_curves_figure(tables, rows),
-            "Median pre-clip norm per epoch: leaders solid, trials with trouble dashed.",
+            "Median pre-clip norm per epoch: leaders solid, trials with trouble dashed, "
+            "diverged ones red.",
         ),
         "<h3>Diverged trials</h3>",
         _diverged_table(tables),
     ]
-    return section("gradients", "Gradient health", *parts)
+    return section("stability", "Where training breaks", *parts)
 
 
 def _diverged_table(tables: StudyTables) -> str:

@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 import optuna
+import torch
 from optuna.trial import FrozenTrial
 
 from sweeper.errors import InputError, RunFailure, SpecError
@@ -34,6 +35,7 @@ from sweeper.spec.loading import parse_spec
 from sweeper.spec.sections import Spec
 from sweeper.store.attrs import StudyInfo, TrialInfo
 from sweeper.store.connect import redact
+from sweeper.tasks import forecast_scores
 from sweeper.tasks.base import Baseline, Task
 from sweeper.tasks.refit import RefitTask
 from sweeper.training.epoch_loop import run_epochs
@@ -153,6 +155,15 @@ class Refit:
     def baseline(self) -> Baseline:
         return self.refit.baseline()
 
+    def held_out_outputs(self) -> torch.Tensor:
+        """The final model's outputs on the held-out sequences (dropout off)."""
+        data, model = self.refit.data("valid"), self.run.model
+        model.eval()
+        with torch.no_grad():
+            outputs, _ = model(data.inputs, model.initial_state(len(data)))
+        model.train()
+        return outputs
+
 
 def refit_best(
     study: optuna.Study, spec: Spec, on_epoch: Callable[[EpochRecord], None] | None = None
@@ -180,7 +191,18 @@ def refit_lines(result: Refit) -> list[str]:
         f"# held out, {split}: loss {record.valid_loss!r}, "
         f"{refit.metric_name} {record.valid_metric!r}",
         f"# baseline there: {result.baseline().description}",
+        *forecast_lines(result),
     ]
+
+
+def forecast_lines(result: Refit) -> list[str]:
+    """For a series task: the final model and the forecasting baselines in data units."""
+    task, refit = result.task, result.refit
+    if not forecast_scores.is_forecast(task):
+        return []
+    outputs = result.held_out_outputs()
+    lines = forecast_scores.comparison_lines(task, outputs, refit.held_out)  # type: ignore[arg-type]
+    return [f"# {line}" for line in lines]
 
 
 def start_line(study: optuna.Study, spec: Spec) -> str:

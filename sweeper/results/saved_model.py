@@ -18,6 +18,7 @@ import torch
 from torch import nn
 
 from sweeper.errors import InputError
+from sweeper.tasks import forecast_scores
 from sweeper.tasks.base import Task
 from sweeper.training.model_plugin import PluginBuilder, model_builder
 from sweeper.training.models import Recurrent
@@ -41,8 +42,11 @@ class SavedModel(nn.Module):
     ``model.predict(inputs, lengths=None)``: forecasts, or classes: [B, T] for per-step
     labels, [B] (at each sequence's last real step) for one class per sequence.
     ``info``: the task (name, kind, sizes, columns, target, horizon, vocabulary, ...), the
-    parameters, seed, epochs, study, trial and spec text. ``network``: the trained module
-    itself, in scaled units, with the contract of ``sweeper.training.models.SequenceModel``.
+    parameters, seed, epochs, study, trial and spec text; for a series, also ``predict``,
+    ``log``, ``season``, the held-out ``scores`` (MSE, MAE, MASE in data units) and the
+    ``baselines`` scored on the same rows (``forecast_scores.SplitBaselines.as_dict``).
+    ``network``: the trained module itself, in scaled units, with the contract of
+    ``sweeper.training.models.SequenceModel``.
     """
 
     def __init__(self, network: Recurrent, info: dict[str, Any], scaling: dict[str, Any]) -> None:
@@ -56,6 +60,8 @@ class SavedModel(nn.Module):
 
     def forward(self, inputs: Any, lengths: Any = None) -> torch.Tensor:
         x, single = self._batch(inputs)
+        raw = x
+        x = _series_inputs(x, self.info)
         if self.input_scaling is not None:
             mean, std = self.input_scaling
             x = (x - mean) / std
@@ -66,6 +72,7 @@ class SavedModel(nn.Module):
         if self.target_scaling is not None:
             mean, std = self.target_scaling
             outputs = outputs.double() * std + mean
+        outputs = _series_levels(outputs, raw, self.info)
         return outputs[0] if single else outputs
 
     def predict(self, inputs: Any, lengths: Any = None) -> torch.Tensor:
@@ -88,6 +95,37 @@ class SavedModel(nn.Module):
                 f"inputs must be [batch, steps, {size}] or [steps, {size}], got {tuple(x.shape)}"
             )
         return (x[None], True) if x.dim() == 2 else (x, False)
+
+
+def _series_inputs(x: torch.Tensor, info: dict[str, Any]) -> torch.Tensor:
+    """Target columns among the inputs as the series task fed them: their log (``log``),
+    their change since the step before (``predict = "change"``; the first step gets the
+    second's change, as in training)."""
+    columns = info.get("target_inputs")
+    if not columns:
+        return x
+    x = x.clone()
+    z = x[..., columns]
+    if info.get("log"):
+        z = torch.log(z)
+    if info.get("predict") == "change":
+        if z.shape[-2] < 2:
+            raise ValueError("a model that forecasts the change needs at least two steps")
+        steps = z[..., 1:, :] - z[..., :-1, :]
+        z = torch.cat([steps[..., :1, :], steps], dim=-2)
+    x[..., columns] = z
+    return x
+
+
+def _series_levels(outputs: torch.Tensor, raw: torch.Tensor, info: dict[str, Any]) -> torch.Tensor:
+    """Forecast levels from the network's goals: the last level plus the change, un-logged."""
+    columns = info.get("target_inputs")
+    if not columns:
+        return outputs
+    level = raw[..., columns]
+    z = torch.log(level) if info.get("log") else level
+    goal = z + outputs if info.get("predict") == "change" else outputs
+    return torch.exp(goal) if info.get("log") else goal
 
 
 def _pair(scaling: dict[str, Any], side: str) -> tuple[torch.Tensor, torch.Tensor] | None:
@@ -123,7 +161,33 @@ def task_info(task: Task) -> dict[str, Any]:
     horizon = getattr(getattr(task, "options", None), "horizon", None)
     if isinstance(horizon, int):
         info["horizon"] = horizon
-    return info
+    return info | series_info(task)
+
+
+def series_info(task: Task) -> dict[str, Any]:
+    """How a series task transformed its target (``target_inputs``: the input positions of
+    the target columns, which the saved model transforms as the task did)."""
+    options = getattr(task, "options", None)
+    if not forecast_scores.is_forecast(task) or options is None:
+        return {}
+    columns, target = getattr(task, "columns", ()), getattr(task, "target", ())
+    transformed = options.predict == "change" or options.log
+    return {
+        "predict": options.predict,
+        "log": options.log,
+        "season": options.season,
+        "target_inputs": [columns.index(name) for name in target] if transformed else [],
+    }
+
+
+def held_out_scores(refit: Refit) -> dict[str, Any]:
+    """The final model's and the baselines' data-unit scores on the held-out split."""
+    task, split = refit.task, refit.refit.held_out
+    if not forecast_scores.is_forecast(task):
+        return {}
+    model = forecast_scores.model_scores(task, refit.held_out_outputs(), split)  # type: ignore[arg-type]
+    baselines = forecast_scores.baseline_scores(task, split)  # type: ignore[arg-type]
+    return {"scores": model.as_dict(), "baselines": baselines.as_dict()}
 
 
 def task_scaling(task: Task) -> dict[str, torch.Tensor]:
@@ -143,17 +207,21 @@ def save_model(path: str | Path, refit: Refit) -> Path:
     plugin = None
     if isinstance(build, PluginBuilder):
         plugin = {"ref": build.ref, "folder": str(build.folder)}
-    info = task_info(refit.task) | {
-        "study": stored.study_name,
-        "trial": stored.number,
-        "seed": stored.seed,
-        "epochs": refit.epochs,
-        "params": stored.params.as_dict(),
-        "spec_text": refit.spec.text,
-        "spec_source": refit.spec.source,
-        "model": plugin,
-        "held_out": refit.refit.held_out,
-    }
+    info = (
+        task_info(refit.task)
+        | {
+            "study": stored.study_name,
+            "trial": stored.number,
+            "seed": stored.seed,
+            "epochs": refit.epochs,
+            "params": stored.params.as_dict(),
+            "spec_text": refit.spec.text,
+            "spec_source": refit.spec.source,
+            "model": plugin,
+            "held_out": refit.refit.held_out,
+        }
+        | held_out_scores(refit)
+    )
     payload = {
         "format": FORMAT,
         "info": info,

@@ -14,6 +14,7 @@ from sweeper.errors import InputError
 from sweeper.results.choice import confirmed_choice
 from sweeper.results.summary_stamp import read_stamp
 from sweeper.spec.sections import Spec
+from sweeper.store import trial_words as words
 from sweeper.store.connect import redact
 from sweeper.sweep.progress import Snapshot, format_seconds
 
@@ -30,7 +31,15 @@ def _eta_text(snap: Snapshot) -> str:
 def status_table(snap: Snapshot) -> str:
     counts = snap.counts
     summary = Table(title=f"study {snap.study_name}", show_header=True)
-    columns = ("budget", "complete", "stopped", "failed", "interrupted", "running", "waiting")
+    columns = (
+        "budget",
+        words.FINISHED,
+        words.STOPPED,
+        words.FAILED,
+        words.INTERRUPTED,
+        words.RUNNING,
+        words.WAITING,
+    )
     for column in (*columns, "best", "ETA"):
         summary.add_column(column, justify="right")
     best = "-" if snap.best_value is None else f"{snap.best_value:.5g} (trial {snap.best_trial})"
@@ -67,9 +76,9 @@ def status_table(snap: Snapshot) -> str:
             )
         console.print(running)
     if snap.retries:
-        retries = Table(title="retries")
+        retries = Table(title="retried trials")
         retries.add_column("trial")
-        retries.add_column("retries trial")
+        retries.add_column("in place of trial")
         for number, original in snap.retries:
             retries.add_row(str(number), str(original))
         console.print(retries)

@@ -15,6 +15,7 @@ from sweeper.seeds import trial_seed
 from sweeper.spec.checks import build_spec_task
 from sweeper.spec.sections import Spec
 from sweeper.store.attrs import TrialInfo
+from sweeper.store.trial_words import trial_word
 from sweeper.sweep.workers import default_threads
 from sweeper.tasks.base import Task
 from sweeper.training.model_plugin import section_model_builder
@@ -57,7 +58,7 @@ def stored_trial(study: optuna.Study, spec: Spec, trial: FrozenTrial) -> StoredT
     if training is None:
         raise InputError(
             f"trial {trial.number} of '{study.study_name}' never started training "
-            f"(state {trial.state.name}); pick a trial that recorded epochs"
+            f"({trial_word(trial)}); pick a trial that recorded epochs"
         )
     seed = info.seed
     if seed is None:

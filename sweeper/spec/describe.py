@@ -6,6 +6,8 @@ from sweeper.spec.checks import build_spec_task
 from sweeper.spec.probe import describe_planned_compute
 from sweeper.spec.sections import Spec, budget_of
 from sweeper.spec.space import Choices, Fixed, Range, SearchEntry
+from sweeper.tasks import forecast_scores
+from sweeper.tasks.base import Task
 
 
 def describe_entry(entry: SearchEntry) -> str:
@@ -35,6 +37,7 @@ def describe_spec(spec: Spec) -> str:
         baseline = task.baseline()
         lines.append(f"  task     {task.describe()}")
         lines.append(f"  baseline {baseline.measure} {baseline.value:.5g} ({baseline.description})")
+        lines.extend(_forecast_lines(task))
     lines.append("  search")
     width = max((len(name) for name in spec.search), default=0)
     for name, entry in spec.search.items():
@@ -63,6 +66,13 @@ def _confirmation(spec: Spec) -> str:
         f"seeds each, after the budget and outside it (up to "
         f"{confirm.configurations * confirm.seeds} more trials)"
     )
+
+
+def _forecast_lines(task: Task) -> list[str]:
+    """A series task's scoring, season and baselines in data units."""
+    if not forecast_scores.is_forecast(task):
+        return []
+    return [f"  forecast {line}" for line in forecast_scores.check_lines(task)]  # type: ignore[arg-type]
 
 
 def _planned(spec: Spec) -> str:

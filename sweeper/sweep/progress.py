@@ -12,6 +12,7 @@ from typing import IO, Any
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 
+from sweeper.store import trial_words as words
 from sweeper.store.attrs import TrialInfo
 from sweeper.sweep.study import Tally, tally
 
@@ -39,14 +40,15 @@ class Snapshot:
         c = self.counts
         best = "-" if self.best_value is None else f"{self.best_value:.5g} (#{self.best_trial})"
         eta = "-" if self.eta_seconds is None else format_seconds(self.eta_seconds)
-        interrupted = f", {c.interrupted} interrupted" if c.interrupted else ""
+        interrupted = f", {c.interrupted} {words.INTERRUPTED}" if c.interrupted else ""
         confirming = ""
         if c.confirmed or c.confirming:
             confirming = f"; confirmation {c.confirmed} done, {c.confirming} to go"
         return (
-            f"{self.study_name}: {c.finished}/{self.budget} finished "
-            f"({c.complete} complete, {c.pruned} stopped), {c.running} running, "
-            f"{c.failed} failed{interrupted}{confirming}; best {best}; ETA {eta}"
+            f"{self.study_name}: {c.finished}/{self.budget} done "
+            f"({c.complete} {words.FINISHED}, {c.pruned} {words.STOPPED}), "
+            f"{c.running} {words.RUNNING}, {c.failed} {words.FAILED}{interrupted}{confirming}; "
+            f"best {best}; ETA {eta}"
         )
 
 
@@ -153,7 +155,8 @@ class ProgressDisplay:
             best = "-" if snap.best_value is None else f"{snap.best_value:.5g}"
             eta = "-" if snap.eta_seconds is None else format_seconds(snap.eta_seconds)
             detail = (
-                f"running {c.running} | stopped {c.pruned} | failed {c.failed} | "
+                f"{words.RUNNING} {c.running} | {words.STOPPED} {c.pruned} | "
+                f"{words.FAILED} {c.failed} | "
                 f"best {best} | ETA {eta}"
             )
             self._bar.update(self._task, total=snap.budget, completed=c.finished, detail=detail)

@@ -75,9 +75,12 @@ class NpzColumns:
     def numeric_columns(self) -> tuple[str, ...]:
         return tuple(name for name, array in self.arrays.items() if _is_column(array))
 
-    def values(self, names: tuple[str, ...], source: str, key: str) -> np.ndarray:
-        """The named columns as float64 [rows, len(names)]; all finite, all the same length."""
-        columns = [self._column(name, source, key) for name in names]
+    def values(
+        self, names: tuple[str, ...], source: str, key: str, missing: bool = False
+    ) -> np.ndarray:
+        """The named columns as float64 [rows, len(names)], all the same length; all finite
+        unless ``missing`` (NaN and infinite values are then left for ``fill``)."""
+        columns = [self._column(name, source, key, missing) for name in names]
         for name, column in zip(names[1:], columns[1:], strict=True):
             if len(column) != len(columns[0]):
                 raise SpecError(
@@ -89,7 +92,7 @@ class NpzColumns:
                 )
         return np.column_stack(columns)
 
-    def _column(self, name: str, source: str, key: str) -> np.ndarray:
+    def _column(self, name: str, source: str, key: str, missing: bool) -> np.ndarray:
         array = require(self.arrays, name, self.path, source, key).astype(np.float64)
         if array.ndim != 1:
             raise SpecError(
@@ -98,13 +101,14 @@ class NpzColumns:
                 f"array {name!r} of {self.path.name} has shape {array.shape}; a series column "
                 "must be 1-D (one value per row)",
             )
-        bad = first_nonfinite(array)
+        bad = None if missing else first_nonfinite(array)
         if bad is not None:
             raise SpecError(
                 source,
                 "task.file",
                 f"array {name!r} of {self.path.name} has a NaN or infinite value at row "
-                f"{bad[0] + 1} (index {bad[0]}); fill it in or drop the row",
+                f"{bad[0] + 1} (index {bad[0]}); fill it in, or set "
+                'fill = "previous" or "linear" in [task]',
             )
         return array
 

@@ -25,23 +25,25 @@ class Table:
     lines: tuple[int, ...]
 
     def numeric_columns(self) -> tuple[str, ...]:
-        """Columns whose first cell is a number (a timestamp column is left out)."""
-        first = self.rows[0]
-        return tuple(
-            name
-            for name, cell in zip(self.columns, first, strict=True)
-            if _number(cell) is not None
-        )
+        """Columns whose first non-empty cell is a number (a timestamp column is left out)."""
+        return tuple(name for i, name in enumerate(self.columns) if self._numeric(i))
 
-    def values(self, names: tuple[str, ...], source: str, key: str) -> np.ndarray:
-        """The named columns as float64 [rows, len(names)]; every cell must be a number."""
+    def _numeric(self, i: int) -> bool:
+        first = next((row[i] for row in self.rows if row[i]), "")
+        return _number(first) is not None
+
+    def values(
+        self, names: tuple[str, ...], source: str, key: str, missing: bool = False
+    ) -> np.ndarray:
+        """The named columns as float64 [rows, len(names)]; every cell must be a number, or,
+        with ``missing``, a cell that is not one is NaN (for a series' ``fill`` option)."""
         for name in names:
             self._check_column(name, source, key)
         index = [self.columns.index(name) for name in names]
         out = np.empty((len(self.rows), len(names)))
         for r in range(len(self.rows)):
             for c, i in enumerate(index):
-                out[r, c] = self._cell(r, i, source)
+                out[r, c] = self._maybe(r, i) if missing else self._cell(r, i, source)
         return out
 
     def _check_column(self, name: str, source: str, key: str) -> None:
@@ -55,6 +57,10 @@ class Table:
             f"no column {name!r} in {self.path.name}; {hint}columns: {', '.join(self.columns)}",
         )
 
+    def _maybe(self, r: int, i: int) -> float:
+        value = _number(self.rows[r][i])
+        return np.nan if value is None else value
+
     def _cell(self, r: int, i: int, source: str) -> float:
         cell = self.rows[r][i]
         value = _number(cell)
@@ -63,7 +69,8 @@ class Table:
                 source,
                 "task.file",
                 f"{_cell_kind(cell)} cell {cell!r} in column {self.columns[i]!r} at row {r + 1} "
-                f"(line {self.lines[r]} of {self.path.name}); fix the cell or drop the row",
+                f"(line {self.lines[r]} of {self.path.name}); fix the cell, or for a series set "
+                'fill = "previous" or "linear" in [task]',
             )
         return value
 

@@ -14,6 +14,7 @@ import torch
 from torch import nn
 
 from sweeper.training.params import TrialParams
+from sweeper.training.recurrence import WindowGRU, WindowRNN, torch_recurrence_chosen
 
 # LSTM carries (h, c); the other cells carry h alone. Each is [layers, batch, hidden].
 State = torch.Tensor | tuple[torch.Tensor, torch.Tensor]
@@ -61,6 +62,7 @@ class SequenceModel(nn.Module):
         self.cell = cell
         self.hidden = hidden
         self.layers = layers
+        # Elman and GRU run our window recurrence (training/recurrence.py), LSTM oneDNN's kernel.
         # torch applies its own dropout only between layers and warns when there is just one.
         between = dropout if layers > 1 else 0.0
         self.rnn = _recurrent(cell, input_size, hidden, layers, between)
@@ -97,10 +99,11 @@ def _recurrent(cell: str, input_size: int, hidden: int, layers: int, dropout: fl
         "dropout": dropout,
         "batch_first": True,
     }
+    own = not torch_recurrence_chosen()
     if cell == "elman":
-        return nn.RNN(nonlinearity="tanh", **common)
+        return (WindowRNN if own else nn.RNN)(nonlinearity="tanh", **common)
     if cell == "gru":
-        return nn.GRU(**common)
+        return (WindowGRU if own else nn.GRU)(**common)
     if cell == "lstm":
         return nn.LSTM(**common)
     raise ValueError(f"cell must be one of elman, gru, lstm, got {cell!r}")

@@ -1,0 +1,95 @@
+"""nn.RNN (tanh) and nn.GRU with our own window recurrence in place of torch's per-step path.
+
+``WindowRNN`` and ``WindowGRU`` are torch's modules, same parameters, names and gate order, so
+a state dict moves freely between them and torch's own; only ``forward`` differs. For
+batch-first [B, T, F] inputs with a state they run each layer as one autograd node
+(``ElmanWindow`` / ``GRUWindow``), with torch's dropout between layers on the time-first
+layer outputs, as torch's own stack applies it. Anything else (unbatched inputs, relu,
+bidirectional, no state) goes to torch's forward, and so does a GRU forward that records no
+gradient (evaluation, windows without targets): there torch's C++ step loop is quicker than
+our Python one, while for Elman ours is.
+
+``SWEEPER_RECURRENCE=torch`` in the environment makes the built-in models use torch's
+modules instead; the benchmarks use it to time the old path against the new.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+
+import torch
+from torch import nn
+
+from sweeper.training.elman_window import ElmanWindow
+from sweeper.training.gru_window import GRUWindow
+
+SWITCH = "SWEEPER_RECURRENCE"
+# one layer's parameters, nn.RNNBase's names (suffixed _l0, _l1, ...)
+_NAMES = ("weight_ih", "weight_hh", "bias_ih", "bias_hh")
+
+
+def torch_recurrence_chosen() -> bool:
+    """True when the environment asks for torch's own nn.RNN / nn.GRU (benchmarks only)."""
+    return os.environ.get(SWITCH, "") == "torch"
+
+
+def handled(module: nn.RNNBase, x: torch.Tensor) -> bool:
+    """Whether our recurrence covers this call; torch's forward takes all others."""
+    return (
+        x.dim() == 3
+        and module.batch_first
+        and not module.bidirectional
+        and module.proj_size == 0
+        and module.bias
+        and getattr(module, "nonlinearity", "tanh") == "tanh"
+    )
+
+
+def recording(module: nn.RNNBase, x: torch.Tensor, state: torch.Tensor) -> bool:
+    """Whether autograd would record this forward (a gradient of an input or a weight)."""
+    if not torch.is_grad_enabled():
+        return False
+    weights = any(w.requires_grad for w in module.parameters())
+    return x.requires_grad or state.requires_grad or weights
+
+
+def run_layers(
+    module: nn.RNNBase,
+    window: Callable[..., tuple[torch.Tensor, torch.Tensor]],
+    x: torch.Tensor,
+    state: torch.Tensor,
+) -> tuple[torch.Tensor, torch.Tensor]:
+    """The layer stack over batch-first ``x`` from ``state`` [layers, B, H], one node a layer."""
+    layer_input = x.transpose(0, 1)
+    last = []
+    for layer in range(module.num_layers):
+        if layer and module.dropout and module.training:
+            layer_input = torch.dropout(layer_input, module.dropout, True)
+        weights = [getattr(module, f"{name}_l{layer}") for name in _NAMES]
+        layer_input, h = window(layer_input, state[layer], *weights)
+        last.append(h)
+    return layer_input.transpose(0, 1), torch.stack(last)
+
+
+class WindowRNN(nn.RNN):
+    """nn.RNN whose tanh batch-first forward is our window recurrence."""
+
+    def forward(  # type: ignore[override]
+        self, x: torch.Tensor, hx: torch.Tensor | None = None
+    ) -> tuple[torch.Tensor, torch.Tensor]:
+        if hx is None or not handled(self, x):
+            return super().forward(x, hx)
+        return run_layers(self, ElmanWindow.apply, x, hx)
+
+
+class WindowGRU(nn.GRU):
+    """nn.GRU whose batch-first forward is our window recurrence."""
+
+    def forward(  # type: ignore[override]
+        self, x: torch.Tensor, hx: torch.Tensor | None = None
+    ) -> tuple[torch.Tensor, torch.Tensor]:
+        # without a gradient to record, torch's C++ step loop is the quicker one for GRU
+        if hx is None or not handled(self, x) or not recording(self, x, hx):
+            return super().forward(x, hx)
+        return run_layers(self, GRUWindow.apply, x, hx)
