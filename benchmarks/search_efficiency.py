@@ -12,7 +12,8 @@ band of configurations reaches (about one random draw in twenty here). A lower t
 as 0.625, half the way from chance, is met by about one draw in four, and then it hardly
 matters how the search chooses. Both searches cover the same space with the same task,
 model and epochs; the default search is the spec with no sampler and no [stopping] section,
-so it measures sweeper's defaults.
+so it measures sweeper's defaults (the stopping schedule fitted to the spec's budget, the
+trial cap).
 
 Each sweep runs in-process with one worker, a few trials at a time, until some trial's
 validation accuracy reaches the target (or the trial cap is met). Its compute to target is
@@ -113,7 +114,7 @@ def build_spec(search: str, seed: int, setting: Setting, folder: Path) -> Spec:
     name = f"{search}-{seed}"
     text = SPEC.format(
         name=name,
-        trials=setting.chunk,
+        trials=setting.cap,  # the budget the default stopping schedule is fitted to
         seed=seed,
         storage=(folder / f"{name}.db").as_posix(),
         train=setting.train,

@@ -47,6 +47,13 @@ EXPECTED = {
         "peak_rss_ratio_gru_256",
         "saved_activations_ratio_elman_256",
     ],
+    "score_choice.py": [
+        "true quality (held-out loss) of each score's pick",
+        "chosen_by_measurement",
+        "schedules for",
+        "short_of_wanted",
+        "worst_ratio_best_epoch_over_last",
+    ],
     "study_growth.py": ["stored trials", "watch-loop pass ms", "per_trial_ms_at_1000"],
     "checkpoint_cost.py": [
         "checkpoint_bytes",

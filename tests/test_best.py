@@ -78,7 +78,8 @@ def test_fragment_is_toml_with_the_best_trials_training_parameters(in_tmp: Path)
     best = study.best_trial
     first = result.output.splitlines()[0]
     assert first == (
-        f"# best of 'tiny': trial {best.number}, valid_loss {best.value!r} after 2 epochs, "
+        f"# best of 'tiny': trial {best.number}, valid_loss {best.value!r} "
+        "at its last epoch, 2, "
         f"seed {best.user_attrs['seed']}"
     )
     table = tomllib.loads(result.output)["training"]
@@ -172,7 +173,10 @@ def test_retrain_fits_train_plus_valid_and_scores_the_test_tail(in_tmp: Path) ->
     assert not (in_tmp / "elsewhere" / "tanks.toml").exists()
     study, spec = load_existing("runs/tanks.db")
     refit = refit_best(study, spec)
-    assert refit.refit.held_out == "test" and len(refit.run.records) == 4
+    # trained for the best trial's score epoch, as the study recorded it (the default score:
+    # the last epoch)
+    assert refit.refit.held_out == "test"
+    assert len(refit.run.records) == study.best_trial.user_attrs["score_epoch"]
     joined = len(refit.task.data("train")) + len(refit.task.data("valid"))
     assert len(refit.refit.data("train")) == joined
     assert refit.held_out.valid_loss < refit.baseline().value  # beats persistence on the tail

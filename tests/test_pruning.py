@@ -225,6 +225,7 @@ batch = 4
 lr = { one_of = [1e30, 0.01] }
 [stopping]
 rule = "asha"
+min_epochs = 1  # a rung at epoch 1, where the diverged trial ends
 """
 
 

@@ -1,11 +1,12 @@
 """The best trial of a study: its parameters as TOML, the spec fixed at them, a final fit.
 
-The fragment is a ``[training]`` table (every training parameter, and the epochs the trial
-ran; for an objective plugin a ``[search]`` table of fixed values) to merge into a spec by
-hand. ``fixed_spec`` is the whole stored spec with its search fixed at those values, a
-one-trial study ready to run. The final fit trains the best configuration, with its seed, on
-the training plus validation sequences for the epochs it ran, and scores it on the held-out
-split.
+The fragment is a ``[training]`` table (every training parameter, and the epochs of the
+trial's score; for an objective plugin a ``[search]`` table of fixed values) to merge into a
+spec by hand. ``fixed_spec`` is the whole stored spec with its search fixed at those values,
+a one-trial study ready to run. The final fit trains the best configuration, with its seed,
+on the training plus validation sequences for its score's epochs (its best epoch under
+``score = "best_epoch"``, else every epoch it ran), shows only training progress while it
+trains, and scores the held-out split once, at the end.
 """
 
 from __future__ import annotations
@@ -48,10 +49,9 @@ def fragment(study: optuna.Study, spec: Spec) -> str:
     """The best parameters as TOML, headed by a comment that says where they come from."""
     trial = chosen_trial(study, spec)
     objective = StudyInfo.of(study).objective
-    epochs = TrialInfo.of(trial).epochs
     head = (
-        f"# best of '{study.study_name}': trial {trial.number}, {objective} {trial.value!r}"
-        f" after {'?' if epochs is None else epochs} epochs"
+        f"# best of '{study.study_name}': trial {trial.number}, "
+        f"{objective} {trial.value!r} {_score_text(spec, TrialInfo.of(trial))}"
     )
     choice = confirmed_choice(study, spec)
     notes = [f"# {line}" for line in choice.lines()] if choice.confirmed else []
@@ -60,6 +60,18 @@ def fragment(study: optuna.Study, spec: Spec) -> str:
     stored = stored_trial(study, spec, trial)
     values = {"epochs": _epochs(trial, spec), **_training_values(spec, stored)}
     return _table([f"{head}, seed {stored.seed}", *notes], "training", values)
+
+
+def _score_text(spec: Spec, info: TrialInfo) -> str:
+    """Where the value comes from on the trial's curve."""
+    ran = "?" if info.epochs is None else info.epochs
+    if info.score_epoch is None:  # an objective plugin, or a study from before scores
+        return f"after {ran} epochs"
+    if spec.study.score == "best_epoch":
+        return f"at its best epoch, {info.score_epoch} of {ran}"
+    if spec.study.score == "recent_mean":
+        return f"as the mean of its last {spec.study.recent_epochs} epochs (of {ran})"
+    return f"at its last epoch, {ran}"
 
 
 def _training_values(spec: Spec, stored: StoredTrial) -> dict[str, Any]:
@@ -132,7 +144,10 @@ def _table(head: list[str], name: str, values: Mapping[str, Any]) -> str:
 
 
 def _epochs(trial: FrozenTrial, spec: Spec) -> int:
-    epochs = TrialInfo.of(trial).epochs
+    """The epochs a final fit trains for: the score's epoch (a trial from before scores were
+    recorded: the epochs it ran)."""
+    info = TrialInfo.of(trial)
+    epochs = info.score_epoch or info.epochs
     return spec.training.epochs if epochs is None else epochs
 
 
@@ -169,7 +184,7 @@ def refit_best(
     study: optuna.Study, spec: Spec, on_epoch: Callable[[EpochRecord], None] | None = None
 ) -> Refit:
     """Train the best configuration, with its seed and the sweep's thread count, on train +
-    valid for the epochs it ran (so the same study always gives the same final model)."""
+    valid for its score's epochs (so the same study always gives the same final model)."""
     trial = chosen_trial(study, spec)
     stored = stored_trial(study, spec, trial)
     task, build = training_setup(spec)
@@ -209,15 +224,13 @@ def start_line(study: optuna.Study, spec: Spec) -> str:
     trial = chosen_trial(study, spec)
     return (
         f"# final fit of trial {trial.number} on training + validation data "
-        f"for {_epochs(trial, spec)} epochs"
+        f"for {_epochs(trial, spec)} epochs; the held-out split is scored once, at the end"
     )
 
 
 def epoch_line(record: EpochRecord) -> str:
-    return (
-        f"# epoch {record.epoch}: train loss {record.train_loss:.6g}, "
-        f"held-out loss {record.valid_loss:.6g}, metric {record.valid_metric:.6g}"
-    )
+    """Training progress only: a held-out score per epoch would invite choosing by it."""
+    return f"# epoch {record.epoch}: train loss {record.train_loss:.6g}"
 
 
 def write_fixed_spec(study: optuna.Study, spec: Spec, path: Path) -> Path:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from sweeper.spec.checks import build_spec_task
 from sweeper.spec.probe import describe_planned_compute
+from sweeper.spec.schedule import Schedule, spec_schedule
 from sweeper.spec.sections import Spec, budget_of
 from sweeper.spec.space import Choices, Fixed, Range, SearchEntry
 from sweeper.tasks import forecast_scores
@@ -25,10 +26,12 @@ def describe_entry(entry: SearchEntry) -> str:
 
 def describe_spec(spec: Spec) -> str:
     study = spec.study
+    schedule = spec_schedule(spec)
     lines = [
         f"{spec.source}: ok",
-        f"  study    {study.name}: {study.objective} ({study.better} is better), "
-        f"sampler {study.sampler}, seed {study.seed}, stopping rule {spec.stopping.rule}",
+        f"  study    {study.name}: {study.objective} ({study.better} is better; {_score(spec)}), "
+        f"sampler {study.sampler}, seed {study.seed}",
+        f"  stopping {_rule(schedule)}" + (f"; {schedule.why}" if schedule.why else ""),
     ]
     if spec.is_objective_plugin:
         lines.append(f"  task     objective plugin {spec.task.function}")
@@ -73,6 +76,23 @@ def _forecast_lines(task: Task) -> list[str]:
     if not forecast_scores.is_forecast(task):
         return []
     return [f"  forecast {line}" for line in forecast_scores.check_lines(task)]  # type: ignore[arg-type]
+
+
+def _score(spec: Spec) -> str:
+    if spec.is_objective_plugin:
+        return "the value the objective returns"
+    score = spec.study.score
+    if score == "recent_mean":
+        return f"mean of the last {spec.study.recent_epochs} epochs"
+    return score.replace("_", " ")
+
+
+def _rule(schedule: Schedule) -> str:
+    if schedule.rule in ("asha", "hyperband"):
+        return f"{schedule.rule} from epoch {schedule.min_epochs}, reduction {schedule.reduction}"
+    if schedule.rule == "median":
+        return f"median from epoch {schedule.min_epochs}"
+    return "none"
 
 
 def _planned(spec: Spec) -> str:

@@ -20,9 +20,11 @@ from sweeper.tasks.section import TaskSection, task_section
 from sweeper.training.params import PARAM_NAMES, TrialParams
 
 BETTER = ("lower", "higher")  # which way a value is better
+CHOSEN_HINT = "; leave the key out to have it chosen from the budget and the epochs"
 OBJECTIVES = ("valid_loss", "valid_metric")
 SAMPLERS = ("tpe", "random", "sobol", "grid", "cmaes")
-RULES = ("none", "median", "asha", "hyperband")
+RULES = ("auto", "none", "median", "asha", "hyperband")
+SCORES = ("best_epoch", "last_epoch", "recent_mean")  # what a trial's value is made of
 # Keys that may differ between launches of one study (everything else must match).
 MUTABLE_KEYS = (
     "study.trials",
@@ -60,6 +62,8 @@ class StudySection:
     seed: int = 0
     better: str = "lower"
     objective: str = "valid_loss"
+    score: str = "last_epoch"  # benchmarks/score_choice.py chose this default (docs/benchmarks.md)
+    recent_epochs: int = 3  # epochs averaged by score = "recent_mean"
     sampler: str = "tpe"
     storage: str = ""
     max_failures: int = 5
@@ -73,6 +77,8 @@ class StudySection:
             raise SectionError("study.name", "must not be empty")
         _require_choice("study.better", self.better, BETTER)
         _require_choice("study.objective", self.objective, OBJECTIVES)
+        _require_choice("study.score", self.score, SCORES)
+        _require_min("study.recent_epochs", self.recent_epochs, 1)
         _require_choice("study.sampler", self.sampler, SAMPLERS)
         _require_min("study.trials", self.trials, 1)
         _require_min("study.workers", self.workers, 1)
@@ -101,17 +107,20 @@ class TrainingSection:
 
 @dataclass(frozen=True)
 class StoppingSection:
-    rule: str = "asha"  # benchmarks/search_efficiency.py measures this default
-    min_epochs: int = 1
-    reduction: int = 3
+    # "auto" and 0: chosen from the budget and the epochs (sweeper/spec/schedule.py)
+    rule: str = "auto"
+    min_epochs: int = 0
+    reduction: int = 0
     warmup_trials: int = 4
     patience: int = 0  # epochs without improvement tolerated before the rule may stop a trial
 
     def __post_init__(self) -> None:
         _check_field_types(self, "stopping")
         _require_choice("stopping.rule", self.rule, RULES)
-        _require_min("stopping.min_epochs", self.min_epochs, 1)
-        _require_min("stopping.reduction", self.reduction, 2)
+        if self.min_epochs != 0:  # 0: leave it to the budget
+            _require_min("stopping.min_epochs", self.min_epochs, 1, CHOSEN_HINT)
+        if self.reduction != 0:
+            _require_min("stopping.reduction", self.reduction, 2, CHOSEN_HINT)
         _require_min("stopping.warmup_trials", self.warmup_trials, 0)
         _require_min("stopping.patience", self.patience, 0)
 
@@ -186,6 +195,7 @@ class Spec:
         for key in MUTABLE_KEYS:
             section, name = key.split(".")
             data[section].pop(name, None)
+        _as_before_scores(data)
         if not data["confirm"]:  # every key mutable: digests of older studies still match
             del data["confirm"]
         text = json.dumps(data, sort_keys=True, default=str)
@@ -215,6 +225,25 @@ def renamed_keys_upgraded(text: str) -> str:
         text,
         flags=re.MULTILINE,
     )
+
+
+# Keys added after studies stored their digests, with the value a spec that leaves them out
+# gets; left out of the digest at that value, so an existing study's spec still matches.
+ADDED_KEYS = {"study": {"score": "last_epoch", "recent_epochs": 3}}
+# Stopping keys now chosen from the budget when left out: the digest holds the fixed values
+# they had before, so that existing studies continue.
+CHOSEN_BEFORE = {"rule": ("auto", "asha"), "min_epochs": (0, 1), "reduction": (0, 3)}
+
+
+def _as_before_scores(data: dict[str, Any]) -> None:
+    for section, added in ADDED_KEYS.items():
+        for key, default in added.items():
+            if data[section].get(key) == default:
+                del data[section][key]
+    stopping = data["stopping"]
+    for key, (chosen, before) in CHOSEN_BEFORE.items():
+        if stopping[key] == chosen:
+            stopping[key] = before
 
 
 def _positive(source: str, key: str, value: int) -> int:
@@ -314,9 +343,9 @@ def _require_choice(key: str, value: str, allowed: tuple[str, ...]) -> None:
         raise SectionError(key, f"must be one of {', '.join(allowed)}, got {value!r}{extra}")
 
 
-def _require_min(key: str, value: int, low: int) -> None:
+def _require_min(key: str, value: int, low: int, hint: str = "") -> None:
     if value < low:
-        raise SectionError(key, f"must be at least {low}, got {value}")
+        raise SectionError(key, f"must be at least {low}, got {value}{hint}")
 
 
 def _parse_study(table: Mapping[str, Any]) -> StudySection:

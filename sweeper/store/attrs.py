@@ -32,6 +32,8 @@ functions; read through ``TrialInfo``):
 ``threads``             torch threads it trained with (replay needs the same count)
 ``training``            every training parameter (``TrialParams.as_dict``)
 ``epochs``              epochs recorded so far
+``score_epoch``         the epoch the trial's score comes from (its best epoch, or its last for
+                        the other scores): what ``best --retrain`` trains for
 ``compute_seconds``     training seconds so far, carried over from the trial it continues
 ``wall_seconds``        seconds from claim to end in its worker
 ``end_reason``          why it ended, in words
@@ -286,6 +288,10 @@ class TrialInfo:
         return _int(self.user.get("epochs"))
 
     @property
+    def score_epoch(self) -> int | None:
+        return _int(self.user.get("score_epoch"))
+
+    @property
     def compute_seconds(self) -> float | None:
         return _number(self.user.get("compute_seconds"))
 
@@ -412,6 +418,10 @@ def record_progress(trial: optuna.Trial, epochs: int, compute_seconds: float | N
     trial.set_user_attr("epochs", epochs)
     if compute_seconds is not None:
         trial.set_user_attr("compute_seconds", compute_seconds)
+
+
+def record_score_epoch(trial: optuna.Trial, epoch: int) -> None:
+    trial.set_user_attr("score_epoch", epoch)
 
 
 def record_end(trial: optuna.Trial, reason: str) -> None:

@@ -15,6 +15,7 @@ import sqlalchemy as sa
 import torch
 
 from sweeper.seeds import confirmation_seed, trial_seed
+from sweeper.spec.schedule import spec_schedule
 from sweeper.spec.sections import Spec
 from sweeper.spec.space import draw
 from sweeper.store import attrs, checkpoints, epoch_rows
@@ -25,6 +26,7 @@ from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.model_plugin import section_model_builder
 from sweeper.training.params import TrialParams
+from sweeper.training.score import Score, score_curve
 from sweeper.training.trial_run import TrialRun
 
 Objective = Callable[[dict[str, Any], Callable[[int, float], None]], float]
@@ -50,6 +52,13 @@ class TrialContext:
 
 def objective_value(spec: Spec, record: EpochRecord) -> float:
     return record.valid_metric if spec.study.objective == "valid_metric" else record.valid_loss
+
+
+def trial_score(spec: Spec, records: tuple[EpochRecord, ...]) -> Score:
+    """The score the spec asks for, from the whole curve (a continued trial's included)."""
+    values = [objective_value(spec, record) for record in records]
+    study = spec.study
+    return score_curve(values, study.score, study.better, study.recent_epochs)
 
 
 def worst_value(spec: Spec) -> float:
@@ -122,7 +131,7 @@ class EpochReporter:
     def __init__(self, trial: optuna.Trial, ctx: TrialContext, run: TrialRun, origin: int) -> None:
         self._trial, self._ctx, self._run, self._origin = trial, ctx, run, origin
         self.compute = sum(record.seconds for record in run.records)
-        self.value = objective_value(ctx.spec, run.records[-1]) if run.records else math.nan
+        self.schedule = spec_schedule(ctx.spec)
         # a confirmation trial measures its configuration to the end: nothing stops it early
         self.may_stop = not TrialInfo.live(trial).is_confirmation
 
@@ -134,12 +143,23 @@ class EpochReporter:
         attrs.record_progress(trial, epoch, self.compute)
 
     def stop_reason(self, record: EpochRecord) -> str | None:
-        self.value = objective_value(self._ctx.spec, record)
-        self._trial.report(self.value, record.epoch)
-        stoppable = self.may_stop and _may_stop(self._ctx.spec, record.epoch)
-        if stoppable and self._trial.should_prune():
+        # the stopping rule decides on each epoch's own value, whatever the score
+        self._trial.report(objective_value(self._ctx.spec, record), record.epoch)
+        if self.may_stop and self._may_stop(record.epoch) and self._trial.should_prune():
             return f"stopped early after epoch {record.epoch}"
         return None
+
+    def _may_stop(self, epoch: int) -> bool:
+        """Whether the stopping rule can decide now (asking optuna costs a few milliseconds)."""
+        spec = self._ctx.spec
+        stops = self.schedule.rule != "none" or spec.stopping.patience > 0  # patience alone
+        return stops and self.schedule.min_epochs <= epoch < spec.training.epochs
+
+    def score(self) -> Score:
+        """The trial's score, its epoch recorded as ``score_epoch``."""
+        score = trial_score(self._ctx.spec, self._run.records)
+        attrs.record_score_epoch(self._trial, score.epoch)
+        return score
 
 
 def _run_training(
@@ -160,6 +180,7 @@ def _run_training(
         should_stop=ctx.should_stop,
     )
     reason = end.reason or end.how
+    score = reporter.score()
     if end.how == "diverged":
         # the sampler must learn that this region is bad
         attrs.record_diverged(trial, reason)
@@ -170,14 +191,7 @@ def _run_training(
         attrs.record_end(trial, reason)
         raise optuna.TrialPruned(reason)
     attrs.record_end(trial, "completed")
-    return reporter.value
-
-
-def _may_stop(spec: Spec, epoch: int) -> bool:
-    """Whether the stopping rule can decide now (asking optuna costs a few milliseconds)."""
-    rule = spec.stopping
-    stops = rule.rule != "none" or rule.patience > 0  # patience alone can stop a trial
-    return stops and rule.min_epochs <= epoch < spec.training.epochs
+    return score.value
 
 
 def _plugin_record(epoch: int, value: float) -> EpochRecord:

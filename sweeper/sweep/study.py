@@ -17,6 +17,7 @@ from optuna.trial import FrozenTrial, TrialState
 from sweeper.errors import SpecChanged, StudyNotFound
 from sweeper.seeds import new_stream, sampler_seed
 from sweeper.spec.loading import parse_spec
+from sweeper.spec.schedule import spec_schedule
 from sweeper.spec.sections import (
     MUTABLE_KEYS,
     Spec,
@@ -92,10 +93,10 @@ def make_pruner(spec: Spec) -> optuna.pruners.BasePruner:
 
 
 def _rule_pruner(spec: Spec) -> optuna.pruners.BasePruner | None:
-    rule = spec.stopping
+    rule = spec_schedule(spec)
     if rule.rule == "median":
         return optuna.pruners.MedianPruner(
-            n_startup_trials=rule.warmup_trials, n_warmup_steps=rule.min_epochs
+            n_startup_trials=spec.stopping.warmup_trials, n_warmup_steps=rule.min_epochs
         )
     if rule.rule == "asha":
         return optuna.pruners.SuccessiveHalvingPruner(

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import math
-
 import torch
 import torch.nn.functional as F
 
@@ -35,7 +33,3 @@ def cross_entropy(outputs: torch.Tensor, data: SequenceSet) -> float:
     logits = outputs.detach().double()
     per_step = F.cross_entropy(logits.transpose(1, 2), data.targets, reduction="none")
     return weighted_mean(per_step, data.weights)
-
-
-def bits_per_character(outputs: torch.Tensor, data: SequenceSet) -> float:
-    return cross_entropy(outputs, data) / math.log(2)

@@ -1,8 +1,13 @@
 """A character-level model of a UTF-8 text file.
 
-The vocabulary is every character in the file. The first ``1 - valid_fraction`` of the
-characters train, the rest validate. Each split is cut into non-overlapping sequences of
-``length`` one-hot characters; the target at every step is the next character.
+The vocabulary is every character in the file. The characters are split in file order: the
+first train, the next ``valid_fraction`` validate, and the last ``test_fraction`` (none by
+default) are a held-out tail that sweeps never read; only ``sweeper best --retrain`` scores
+it. Each split is cut into non-overlapping sequences of ``length`` one-hot characters; the
+target at every step is the next character.
+
+Every score of this task is in nats per character: the loss (cross-entropy), the metric
+(the same cross-entropy, named by its unit) and the unigram baseline.
 """
 
 from __future__ import annotations
@@ -22,7 +27,14 @@ from sweeper.tasks import metrics
 from sweeper.tasks.base import Baseline, SequenceSet, Split
 from sweeper.tasks.cached import CachedTask
 from sweeper.tasks.files import read_utf8, resolve
-from sweeper.tasks.options import check_at_least, check_fraction, parse_options
+from sweeper.tasks.options import (
+    check_at_least,
+    check_fraction,
+    check_split_fractions,
+    parse_options,
+)
+
+UNIT = "nats per character"
 
 
 @dataclass(frozen=True)
@@ -30,16 +42,18 @@ class TextOptions:
     file: str = ""
     length: int = 100
     valid_fraction: float = 0.1
+    test_fraction: float = 0.0  # the held-out tail; 0 = none
 
     def __post_init__(self) -> None:
         check_at_least("length", self.length, 1)
         check_fraction("valid_fraction", self.valid_fraction)
+        check_split_fractions(self.valid_fraction, self.test_fraction)
 
 
 class TextTask(CachedTask):
     name = "text"
     kind = "classification"
-    metric_name = "bits_per_character"
+    metric_name = "nats_per_character"
     metric_higher_is_better = False
 
     def __init__(self, options: TextOptions, base_dir: Path, source: str) -> None:
@@ -50,9 +64,12 @@ class TextTask(CachedTask):
         self.vocabulary = "".join(sorted(set(text)))
         self.input_size = self.output_size = len(self.vocabulary)
         self.length = options.length
-        cut = len(text) - round(len(text) * options.valid_fraction)
-        self.texts = {"train": text[:cut], "valid": text[cut:]}
-        for split, part in self.texts.items():
+        tail = len(text) - round(len(text) * options.test_fraction)
+        cut = tail - round(len(text) * options.valid_fraction)
+        self.texts = {"train": text[:cut], "valid": text[cut:tail], "test": text[tail:]}
+        self.splits = ("train", "valid", "test") if tail < len(text) else ("train", "valid")
+        for split in self.splits:
+            part = self.texts[split]
             if len(part) < options.length + 1:
                 raise SpecError(
                     source,
@@ -78,16 +95,24 @@ class TextTask(CachedTask):
         return self.texts[split][1 : count * self.options.length + 1]
 
     def baseline(self) -> Baseline:
-        nats = unigram_entropy(self.scored_text("valid"))
+        return self.baseline_on("valid")
+
+    def baseline_on(self, split: Split) -> Baseline:
+        """The unigram entropy of ``split``'s own characters (the refit asks for "test")."""
+        nats = unigram_entropy(self.scored_text(split))
+        name = "validation" if split == "valid" else split
         return Baseline(
             nats,
             "valid_loss",
-            f"unigram entropy {nats:.4f} nats ({nats / math.log(2):.3f} bits) per character "
-            "of the validation text: the best a model that ignores context can do",
+            f"unigram entropy {nats:.4f} {UNIT} of the {name} text: the best a model that "
+            "ignores context can do",
         )
 
     def metric(self, outputs: torch.Tensor, data: SequenceSet) -> float:
-        return metrics.bits_per_character(outputs, data)
+        return metrics.cross_entropy(outputs, data)
+
+    def describe(self) -> str:
+        return f"{super().describe()}, scored in {UNIT}"
 
 
 def unigram_entropy(text: str) -> float:
