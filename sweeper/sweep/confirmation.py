@@ -64,15 +64,27 @@ def plan(trials: Sequence[FrozenTrial], spec: Spec) -> list[Planned]:
 
 
 def missing(trials: Sequence[FrozenTrial], spec: Spec) -> list[Planned]:
-    """Planned confirmation trials that no trial stands for yet.
+    """Planned confirmation trials that no trial stands for yet: what to queue.
 
     A failed one no longer stands for its round (as a failed searched trial is replaced);
     a retry or continuation of it, waiting or running, does.
     """
+    return _without(trials, spec, (TrialState.FAIL,))
+
+
+def unfinished(trials: Sequence[FrozenTrial], spec: Spec) -> list[Planned]:
+    """Planned confirmation trials not finished yet: while there are, workers stay (a
+    running one may belong to a dead worker, whose retry comes later)."""
+    return _without(trials, spec, (TrialState.FAIL, TrialState.RUNNING, TrialState.WAITING))
+
+
+def _without(
+    trials: Sequence[FrozenTrial], spec: Spec, uncovering: tuple[TrialState, ...]
+) -> list[Planned]:
     covered = set()
     for trial in trials:
         info = TrialInfo.of(trial)
-        if info.confirms is None or info.confirm_round is None or trial.state == TrialState.FAIL:
+        if info.confirms is None or info.confirm_round is None or trial.state in uncovering:
             continue
         covered.add(Planned(info.confirms, info.confirm_round))
     return [item for item in plan(trials, spec) if item not in covered]

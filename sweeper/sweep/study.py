@@ -347,13 +347,14 @@ def search_over(trials: list[FrozenTrial], spec: Spec) -> bool:
 
 def budget_met(trials: list[FrozenTrial], spec: Spec) -> bool:
     """Whether a worker may stop: the search budget is met and every confirmation trial it
-    calls for is finished, running or queued."""
-    return search_budget_met(trials, spec) and not confirmation.missing(trials, spec)
+    calls for is finished."""
+    return search_budget_met(trials, spec) and not confirmation.unfinished(trials, spec)
 
 
 def work_left(trials: list[FrozenTrial], spec: Spec) -> bool:
-    """Searched trials still to finish, or confirmation trials still to queue."""
-    return tally(trials).finished < budget_of(spec) or bool(confirmation.missing(trials, spec))
+    """Searched trials still to finish, or confirmation trials."""
+    searching = tally(trials).finished < budget_of(spec)
+    return searching or bool(confirmation.unfinished(trials, spec))
 
 
 def claim_exceeds_budget(trials: list[FrozenTrial], trial_number: int, spec: Spec) -> bool:
