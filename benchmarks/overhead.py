@@ -37,6 +37,9 @@ name = "overhead"
 trials = 8
 seed = 11
 sampler = "grid"
+[confirm]
+configurations = 0  # the search alone is measured
+
 [task]
 kind = "adding"
 length = 50

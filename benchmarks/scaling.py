@@ -35,6 +35,9 @@ name = "scaling"
 trials = 64
 seed = 5
 sampler = "grid"
+[confirm]
+configurations = 0  # the search alone is measured
+
 [task]
 kind = "adding"
 length = 50

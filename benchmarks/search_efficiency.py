@@ -54,6 +54,9 @@ trials = {trials}
 seed = {seed}
 storage = "{storage}"
 {sampler}
+[confirm]
+configurations = 0  # the search alone is measured
+
 [task]
 kind = "recall"
 length = 24

@@ -165,6 +165,8 @@ def worker(study_location: str, report_path: str | None) -> None:
             f"{where}"
         )
         return
+    for line in _settled_choice(result.location, result.study_name):
+        click.echo(line)
     _write_summary(result.location, report_path, result.study_name)
 
 
@@ -195,10 +197,21 @@ def _finish(result: object, report_path: str | None) -> None:
             "raise --trials to run more"
         )
     _final_line(result.snapshot.line())
-    if result.best_line:
-        click.echo(result.best_line)
+    choice = _settled_choice(result.location, result.study_name)
+    for line in choice or ([result.best_line] if result.best_line else []):
+        click.echo(line)
     click.echo(f"study: {redact(result.location)}")
     _write_summary(result.location, report_path, result.study_name)
+
+
+def _settled_choice(location: str, study_name: str) -> list[str]:
+    """The confirmed choice, stored in the study and said in words (none for a study without
+    a completed trial)."""
+    from sweeper.results.choice import settle_choice
+    from sweeper.sweep.study import load_existing
+
+    study, spec = load_existing(location, study_name)
+    return settle_choice(study, spec)
 
 
 def _write_summary(location: str, report_path: str | None, study_name: str) -> None:
@@ -243,13 +256,15 @@ def status(study_location: str) -> None:
     Also says when the summary beside the study (where `run` writes it by default) misses
     trials that finished after it was written; a summary written elsewhere is not looked at.
     """
-    from sweeper.results.status import stale_summary_line, status_table
+    from sweeper.results.status import choice_lines, stale_summary_line, status_table
     from sweeper.sweep.progress import snapshot
     from sweeper.sweep.study import budget_of, load_existing
 
     study, spec = load_existing(study_location, read_only=True)
     snap = snapshot(study, budget_of(spec), spec.study.workers)
     click.echo(status_table(snap))
+    for line in choice_lines(study, spec):
+        click.echo(line)
     page = default_report_path(study_location)
     stale = stale_summary_line(page, study.get_trials(deepcopy=False), study_location)
     if stale:

@@ -18,6 +18,13 @@ def trial_seed(study_seed: int, trial_number: int) -> int:
     return derive_seed("trial", study_seed, trial_number)
 
 
+def confirmation_seed(study_seed: int, searched_trial: int, round_: int) -> int:
+    """Seed of a confirmation trial: round ``round_`` (1, 2, ...) of retraining the
+    parameters of ``searched_trial``. A part of its own ("confirm") keeps it apart from
+    every searched trial's seed."""
+    return derive_seed("confirm", study_seed, searched_trial, round_)
+
+
 def sampler_seed(study_seed: int, worker_index: int, stream: int) -> int:
     """Seed of one worker start's sampler.
 

@@ -19,6 +19,9 @@ workers = {workers}
 seed = 3
 sampler = "{sampler}"
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 12

@@ -28,6 +28,12 @@ EXPECTED = {
         "trials_phase_ratio",
         "bookkeeping_share_of_training",
     ],
+    "selection.py": [
+        "median regret (a)",
+        "close pairs flagged",
+        "worst_regret_ratio",
+        "compute_ratio",
+    ],
     "scaling.py": ["machine ceiling", "speedup_2_workers", "machine_ceiling_2"],
     "demo_scaling.py": ["queued demo trials", "epochs 1w / 2w", "demo_wall_ratio_2_over_1"],
     "trainer_flops.py": [

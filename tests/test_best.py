@@ -29,6 +29,9 @@ name = "tanks"
 trials = 3
 seed = 8
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "series"
 file = "tanks.csv"
@@ -105,7 +108,9 @@ def test_no_completed_trial_exits_2(in_tmp: Path) -> None:
         "def score(params, report):\n    raise RuntimeError('sensor offline')\n", encoding="utf-8"
     )
     (in_tmp / "flaky.toml").write_text(
-        '[study]\nname = "flaky"\ntrials = 1\nmax_failures = 1\n\n[task]\nkind = "objective"\n'
+        '[study]\nname = "flaky"\ntrials = 1\nmax_failures = 1\n\n'
+        "[confirm]\nconfigurations = 0\n"
+        '[task]\nkind = "objective"\n'
         'function = "best_flaky:score"\n\n[search]\nx = { between = [0.0, 1.0] }\n',
         encoding="utf-8",
     )
@@ -122,7 +127,9 @@ def test_objective_plugin_best_is_a_search_table_of_fixed_values(in_tmp: Path) -
         "def score(params, report):\n    return (params['x'] - 1) ** 2\n", encoding="utf-8"
     )
     (in_tmp / "bowl.toml").write_text(
-        '[study]\nname = "bowl"\ntrials = 4\n\n[task]\nkind = "objective"\n'
+        '[study]\nname = "bowl"\ntrials = 4\n\n'
+        "[confirm]\nconfigurations = 0\n"
+        '[task]\nkind = "objective"\n'
         'function = "best_bowl:score"\n\n[search]\nx = { between = [-2.0, 2.0] }\n',
         encoding="utf-8",
     )
@@ -252,6 +259,9 @@ objective = "valid_metric"
 trials = 2
 seed = 4
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "sequences"
 file = "parcels.npz"
@@ -302,6 +312,9 @@ name = "tiny"
 trials = 1
 seed = 3
 sampler = "cmaes"
+
+[confirm]
+configurations = 0  # the test counts searched trials
 
 [task]
 kind = "adding"

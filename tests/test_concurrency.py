@@ -26,6 +26,9 @@ workers = 8
 seed = 2
 sampler = "random"
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "objective"
 function = "waves:wave"

@@ -23,6 +23,9 @@ workers = 1
 seed = 3
 storage = "f.db"
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 20

@@ -25,6 +25,9 @@ workers = 2
 seed = 17
 heartbeat = 1
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 40

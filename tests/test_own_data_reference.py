@@ -29,6 +29,9 @@ trials = {trials}
 seed = 1
 sampler = "random"
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "series"
 file = "sunspots.npz"
@@ -59,6 +62,9 @@ objective = "valid_metric"
 trials = {trials}
 seed = 2
 sampler = "random"
+
+[confirm]
+configurations = 0  # the test counts searched trials
 
 [task]
 kind = "sequences"

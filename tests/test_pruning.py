@@ -25,6 +25,9 @@ TRAINING_SPEC = """
 name = "rules"
 better = "{better}"
 trials = 4
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 12
@@ -142,6 +145,7 @@ def _curve_sweep(folder: Path, stopping: str, search: str, trials: int = 12) -> 
     text = (
         f'[study]\nname = "curves"\ntrials = {trials}\nseed = 2\nsampler = "random"\n'
         f'storage = "{(folder / "curves.db").as_posix()}"\n'
+        "[confirm]\nconfigurations = 0\n"
         f'[task]\nkind = "objective"\nfunction = "tests.test_pruning:curve"\n'
         f'path = "{REPO.as_posix()}"\n[search]\n{search}\n[stopping]\n{stopping}\n'
     )
@@ -203,6 +207,9 @@ DIVERGING_SPEC = """
 [study]
 name = "diverges"
 sampler = "grid"
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 8

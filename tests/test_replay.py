@@ -118,7 +118,9 @@ def test_objective_plugin_studies_cannot_be_replayed(in_tmp: Path) -> None:
     )
     spec = in_tmp / "bowl.toml"
     spec.write_text(
-        '[study]\nname = "bowl"\ntrials = 2\n\n[task]\nkind = "objective"\n'
+        '[study]\nname = "bowl"\ntrials = 2\n\n'
+        "[confirm]\nconfigurations = 0\n"
+        '[task]\nkind = "objective"\n'
         'function = "replay_bowl:score"\n\n[search]\nx = { between = [-2.0, 2.0] }\n',
         encoding="utf-8",
     )

@@ -72,6 +72,7 @@ def test_the_only_parameter_that_matters_ranks_first_with_a_separate_interval(
     # more than all the other parameters together
     assert top.low <= top.share <= top.high
     assert top.low > 0.5
+    assert result.ranked and result.note == ""  # lr's interval stands clear of the rest
 
 
 def test_bootstrap_is_seeded(one_parameter_tables) -> None:
@@ -133,3 +134,63 @@ def test_no_varying_parameter_gives_a_reason(tmp_path: Path) -> None:
     assert result.rows == ()
     assert result.fixed == ("hidden",)
     assert "more than one value" in result.note
+
+
+def _curve_trial(number: int, x: float, c: str, epochs: int, confirms: int | None = None):
+    """A trial with a learning curve: the level is set by x, and c="b" is a little better."""
+    curve = {
+        e: (x - 0.6) ** 2 + (0.0 if c == "b" else 0.05) + 1.0 / e for e in range(1, epochs + 1)
+    }
+    return optuna.trial.create_trial(
+        state=optuna.trial.TrialState.COMPLETE if epochs == 4 else optuna.trial.TrialState.PRUNED,
+        value=curve[epochs],
+        params={"x": x, "c": c},
+        distributions={"x": FloatDistribution(0.0, 1.0), "c": CategoricalDistribution(["a", "b"])},
+        intermediate_values=curve,
+        user_attrs={} if confirms is None else {"confirms": confirms, "confirm_round": 1},
+    )
+
+
+def test_importance_at_the_deepest_shared_epoch_counts_stopped_trials(tmp_path: Path) -> None:
+    rng = np.random.default_rng(7)
+    xs = rng.uniform(0.0, 1.0, 14)
+    # 6 ran all 4 epochs, 8 were stopped after epoch 2: only epoch 2 has 8 or more values
+    trials = [_curve_trial(i, float(x), "ab"[i % 2], 4 if i < 6 else 2) for i, x in enumerate(xs)]
+    repeats = [_curve_trial(14 + k, float(xs[0]), "a", 4, confirms=0) for k in range(3)]
+    result = param_importance(_tables(tmp_path, trials + repeats), replicates=10)
+    assert (result.epoch, result.trials_used, result.stopped_used) == (2, 14, 8)
+    assert "epoch 2 of 14 trials, 8 of them stopped early" in result.basis
+
+    # the reference: optuna's own PED-ANOVA evaluator, run directly on the 14 searched
+    # trials' values at epoch 2 (confirmation repeats left out), normalised to shares
+    reference = optuna.create_study()
+    for trial in trials:
+        reference.add_trial(
+            optuna.trial.create_trial(
+                value=trial.intermediate_values[2],
+                params=trial.params,
+                distributions=trial.distributions,
+            )
+        )
+    expected = optuna.importance.get_param_importances(
+        reference,
+        evaluator=optuna.importance.PedAnovaImportanceEvaluator(target_quantile=0.25),
+        normalize=True,
+    )
+    assert {r.name: r.share for r in result.rows} == pytest.approx(dict(expected))
+
+
+def test_overlapping_intervals_say_the_parameters_cannot_be_ranked(tmp_path: Path) -> None:
+    # two parameters that matter equally: the value is the sum of their distances from 0.5
+    space = {"x": FloatDistribution(0.0, 1.0), "y": FloatDistribution(0.0, 1.0)}
+    rng = np.random.default_rng(3)
+    trials = [
+        synthetic_trial(i, value=abs(x - 0.5) + abs(y - 0.5), params={"x": x, "y": y},
+                        distributions=space)
+        for i, (x, y) in enumerate(rng.uniform(0.0, 1.0, (40, 2)).tolist())
+    ]  # fmt: skip
+    result = param_importance(_tables(tmp_path, trials), replicates=30)
+    assert not result.ranked
+    assert "cannot be ranked" in result.note and len(result.rows) == 2
+    first, second = result.rows
+    assert second.high >= first.low  # the intervals overlap indeed

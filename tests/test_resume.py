@@ -21,6 +21,9 @@ workers = {workers}
 seed = 13
 heartbeat = 1
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 40

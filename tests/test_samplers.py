@@ -27,6 +27,9 @@ TRAINING = """
 [study]
 name = "s"
 sampler = "{sampler}"
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 12
@@ -150,6 +153,7 @@ def _objective_spec(folder: Path, function: str, sampler: str, search: str, **st
     text = (
         f'[study]\nname = "{function}"\nsampler = "{sampler}"\n{extra}'
         f'storage = "{(folder / "study.db").as_posix()}"\n'
+        "[confirm]\nconfigurations = 0\n"
         f'[task]\nkind = "objective"\nfunction = "tests.test_samplers:{function}"\n'
         f'path = "{REPO.as_posix()}"\n[search]\n{search}\n'
     )

@@ -28,11 +28,14 @@ REPO = Path(__file__).resolve().parents[1]
 
 
 def _spec(hours: float, trials: int = 100, workers: int = 1) -> Spec:
+    # the search's own budget, without the confirmation trials that follow it
+    # (tests/test_confirmation.py)
     text = (
         f'[study]\nname = "budget"\ntrials = {trials}\nworkers = {workers}\n'
         f"compute_hours = {hours!r}\n"
         f'[task]\nkind = "objective"\nfunction = "tests.test_search_budget:tenth_of_a_second"\n'
         f'path = "{REPO.as_posix()}"\n[search]\nx = {{ between = [0.0, 1.0] }}\n'
+        "[confirm]\nconfigurations = 0\n"
     )
     return parse_spec(text, "<budget>")
 

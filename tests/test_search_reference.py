@@ -79,6 +79,7 @@ def _spec_text(function: str, space: str, sampler: str, seed: int, folder: Path)
     return (
         f'[study]\nname = "{function}-{sampler}-{seed}"\ntrials = {TRIALS}\nseed = {seed}\n'
         f'sampler = "{sampler}"\nstorage = "{(folder / f"{sampler}-{seed}.db").as_posix()}"\n'
+        "[confirm]\nconfigurations = 0\n"
         f'[task]\nkind = "objective"\nfunction = "tests.test_search_reference:{function}"\n'
         f'path = "{REPO.as_posix()}"\n[search]\n{space}'
     )

@@ -22,6 +22,9 @@ workers = {workers}
 seed = 5
 heartbeat = 10  # stale only after 20 s: the checks below come well before
 
+[confirm]
+configurations = 0  # the test counts searched trials
+
 [task]
 kind = "adding"
 length = 20

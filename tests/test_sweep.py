@@ -120,6 +120,7 @@ def test_objective_plugin_and_failing_plugin(in_tmp: Path) -> None:
     )
     text = (
         '[study]\nname = "{name}"\ntrials = {trials}\nsampler = "random"\nmax_failures = 3\n'
+        "[confirm]\nconfigurations = 0\n"
         '[task]\nkind = "objective"\nfunction = "bowl:{fn}"\npath = "."\n'
         "[search]\nx = {{ between = [0.0, 1.0] }}\n"
     )

@@ -92,6 +92,7 @@ class TrialRow:
     lr: float
     unroll: float  # truncated-BPTT window in steps; NaN when unknown
     curve: tuple[tuple[int, float], ...]  # (step, objective) as reported per epoch
+    confirms: int | None = None  # a confirmation trial: the searched trial it repeats
 
     @property
     def finished(self) -> bool:
@@ -253,6 +254,7 @@ def _trial_row(trial: FrozenTrial) -> TrialRow:
         lr=_float(trial.params.get("lr", training.get("lr"))),
         unroll=_float(trial.params.get("unroll", training.get("unroll"))),
         curve=tuple(sorted((int(k), _float(v)) for k, v in trial.intermediate_values.items())),
+        confirms=info.confirms,
     )
 
 

@@ -46,7 +46,20 @@ class ImportanceResult:
     replicates: int
     level: float
     fixed: tuple[str, ...]  # searched parameters that held one value in every completed trial
-    note: str  # why nothing could be estimated; empty when rows are meaningful
+    # without rows: why nothing could be estimated; with rows: why they cannot be ranked
+    # (empty when the ranking stands)
+    note: str
+    epoch: int | None = None  # the epoch the trials were compared at; None: their own values
+    stopped_used: int = 0  # of ``trials_used``, the trials a stopping rule ended early
+    ranked: bool = True  # False when the top two parameters' intervals overlap
+
+    @property
+    def basis(self) -> str:
+        """Which values the importance rests on, in words."""
+        if self.epoch is None:
+            return f"the final values of {self.trials_used} completed trials"
+        stopped = f", {self.stopped_used} of them stopped early" if self.stopped_used else ""
+        return f"the values at epoch {self.epoch} of {self.trials_used} trials{stopped}"
 
 
 class _TrialSample(optuna.Study):
@@ -79,17 +92,21 @@ def param_importance(
     seed: int = 0,
     level: float = LEVEL,
 ) -> ImportanceResult:
-    """Importance of every varying parameter over the completed trials, with intervals."""
-    done = tables.completed()
+    """Importance of every varying parameter over the finished trials, with intervals."""
+    sample = shared_epoch_sample(tables)
+    done = [row for row, _ in sample.values]
     varying, fixed = _split_varying(done)
-    empty = ImportanceResult((), len(done), 0, level, fixed, "")
+    empty = ImportanceResult(
+        (), len(done), 0, level, fixed, "", sample.epoch, sample.stopped
+    )  # fmt: skip
     if len(done) < MIN_TRIALS:
-        note = f"needs at least {MIN_TRIALS} completed trials; the study has {len(done)}"
-        return _with_note(empty, note)
+        return _with_note(empty, sample.shortfall)
     if not varying:
         return _with_note(empty, "no searched parameter took more than one value")
     shared: dict[BaseDistribution, BaseDistribution] = {}
-    trials = [_frozen(i, row, varying, shared) for i, row in enumerate(done)]
+    trials = [
+        _frozen(i, row, value, varying, shared) for i, (row, value) in enumerate(sample.values)
+    ]
     study = _TrialSample(tables.summary.direction)
     point = _shares(study, trials, varying)
     if not any(point.values()):
@@ -103,11 +120,69 @@ def param_importance(
         for i, name in enumerate(varying)
     ]
     rows.sort(key=lambda r: (-r.share, r.name))
-    return ImportanceResult(tuple(rows), len(done), replicates, level, fixed, "")
+    ranked, note = _ranking(rows)
+    return ImportanceResult(
+        tuple(rows), len(done), replicates, level, fixed, note, sample.epoch, sample.stopped,
+        ranked,
+    )  # fmt: skip
+
+
+def _ranking(rows: Sequence[Importance]) -> tuple[bool, str]:
+    """Whether the top parameter stands apart: its interval clear of the runner-up's."""
+    if len(rows) < 2 or rows[0].low > rows[1].high:
+        return True, ""
+    first, second = rows[0], rows[1]
+    return False, (
+        f"the intervals of {first.name} ({first.low:.0%} to {first.high:.0%}) and "
+        f"{second.name} ({second.low:.0%} to {second.high:.0%}) overlap: "
+        "they cannot be ranked"
+    )
 
 
 def _with_note(result: ImportanceResult, note: str) -> ImportanceResult:
-    return ImportanceResult((), result.trials_used, 0, result.level, result.fixed, note)
+    return ImportanceResult(
+        (), result.trials_used, 0, result.level, result.fixed, note, result.epoch,
+        result.stopped_used,
+    )  # fmt: skip
+
+
+@dataclass(frozen=True)
+class EpochSample:
+    """The trials importance compares and each one's value; ``epoch`` None: final values."""
+
+    values: tuple[tuple[TrialRow, float], ...]
+    epoch: int | None
+    stopped: int
+    shortfall: str  # why there are too few, in words (used when there are)
+
+
+def shared_epoch_sample(tables: StudyTables) -> EpochSample:
+    """Every finished configuration's value at the deepest epoch that at least
+    ``MIN_TRIALS`` of them reached, from their recorded curves (stopped trials included;
+    a non-finite value, as a diverged trial's last, is left out). A study whose trials
+    recorded no curve (plain optuna) is compared by the completed trials' values."""
+    # a confirmation trial repeats a searched configuration: it would count it twice
+    finished = [
+        t for t in tables.trials if t.state in ("COMPLETE", "PRUNED") and t.confirms is None
+    ]
+    if not any(row.curve for row in finished):
+        done = [row for row in finished if row.state == "COMPLETE" and math.isfinite(row.value)]
+        why = f"needs at least {MIN_TRIALS} completed trials; the study has {len(done)}"
+        return EpochSample(tuple((row, row.value) for row in done), None, 0, why)
+    at: dict[int, list[tuple[TrialRow, float]]] = {}
+    for row in finished:
+        for epoch, value in row.curve:
+            if math.isfinite(value):
+                at.setdefault(epoch, []).append((row, value))
+    reached = [epoch for epoch, rows in at.items() if len(rows) >= MIN_TRIALS]
+    epoch = max(reached) if reached else max(at, key=lambda e: (len(at[e]), e), default=0)
+    values = at.get(epoch, [])
+    stopped = sum(1 for row, _ in values if row.state == "PRUNED")
+    why = (
+        f"needs at least {MIN_TRIALS} trials that reached one epoch; "
+        f"at most {len(values)} of the {len(finished)} finished trials did"
+    )
+    return EpochSample(tuple(values), epoch, stopped, why)
 
 
 def _split_varying(done: Sequence[TrialRow]) -> tuple[list[str], tuple[str, ...]]:
@@ -123,6 +198,7 @@ def _split_varying(done: Sequence[TrialRow]) -> tuple[list[str], tuple[str, ...]
 def _frozen(
     trial_id: int,
     row: TrialRow,
+    value: float,
     names: Sequence[str],
     shared: dict[BaseDistribution, BaseDistribution],
 ) -> FrozenTrial:
@@ -135,7 +211,7 @@ def _frozen(
     return FrozenTrial(
         number=trial_id,
         state=TrialState.COMPLETE,
-        value=row.value,
+        value=value,
         datetime_start=None,
         datetime_complete=None,
         params={name: row.params[name] for name in keep},

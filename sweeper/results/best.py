@@ -22,6 +22,7 @@ import torch
 from optuna.trial import FrozenTrial
 
 from sweeper.errors import InputError, RunFailure, SpecError
+from sweeper.results.choice import chosen_trial, confirmed_choice
 from sweeper.results.fixed_spec import SEARCHLESS_SAMPLERS, SpecEdit, fixed_text, toml_value
 from sweeper.results.stored_trial import (
     StoredTrial,
@@ -44,28 +45,21 @@ from sweeper.training.models import ModelBuilder
 from sweeper.training.trial_run import TrialRun
 
 
-def best_trial(study: optuna.Study) -> FrozenTrial:
-    try:
-        return study.best_trial
-    except ValueError:
-        raise InputError(
-            f"study '{study.study_name}' has no completed trial yet; run or resume it first"
-        ) from None
-
-
 def fragment(study: optuna.Study, spec: Spec) -> str:
     """The best parameters as TOML, headed by a comment that says where they come from."""
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     objective = StudyInfo.of(study).objective
     head = (
         f"# best of '{study.study_name}': trial {trial.number}, "
         f"{objective} {trial.value!r} {_score_text(spec, TrialInfo.of(trial))}"
     )
+    choice = confirmed_choice(study, spec)
+    notes = [f"# {line}" for line in choice.lines()] if choice.confirmed else []
     if spec.is_objective_plugin:
-        return _table(head, "search", trial.params)
+        return _table([head, *notes], "search", trial.params)
     stored = stored_trial(study, spec, trial)
     values = {"epochs": _epochs(trial, spec), **_training_values(spec, stored)}
-    return _table(f"{head}, seed {stored.seed}", "training", values)
+    return _table([f"{head}, seed {stored.seed}", *notes], "training", values)
 
 
 def _score_text(spec: Spec, info: TrialInfo) -> str:
@@ -91,7 +85,7 @@ def _training_values(spec: Spec, stored: StoredTrial) -> dict[str, Any]:
 def ensure_refittable(study: optuna.Study, spec: Spec) -> None:
     """Refuse up front, before anything is printed, a study whose best trial cannot be
     trained again (an objective plugin, or a trial that recorded no training)."""
-    stored_trial(study, spec, best_trial(study))
+    stored_trial(study, spec, chosen_trial(study, spec))
 
 
 def fixed_spec(study: optuna.Study, spec: Spec) -> str:
@@ -102,7 +96,7 @@ def fixed_spec(study: optuna.Study, spec: Spec) -> str:
     the study seed for trial 0, which is the best trial's own seed only when that was trial
     0; the head says so, and how to train with the very seed.
     """
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     name = f"{study.study_name}-trial-{trial.number}"
     settings: dict[str, Any] = {"name": name, "trials": 1, "workers": 1}
     if spec.study.sampler in SEARCHLESS_SAMPLERS:
@@ -144,8 +138,8 @@ def _seed_lines(study: optuna.Study, spec: Spec, stored: StoredTrial) -> list[st
     ]
 
 
-def _table(head: str, name: str, values: Mapping[str, Any]) -> str:
-    lines = [head, f"[{name}]"] + [f"{key} = {toml_value(v)}" for key, v in values.items()]
+def _table(head: list[str], name: str, values: Mapping[str, Any]) -> str:
+    lines = [*head, f"[{name}]"] + [f"{key} = {toml_value(v)}" for key, v in values.items()]
     return "\n".join(lines)
 
 
@@ -191,7 +185,7 @@ def refit_best(
 ) -> Refit:
     """Train the best configuration, with its seed and the sweep's thread count, on train +
     valid for its score's epochs (so the same study always gives the same final model)."""
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     stored = stored_trial(study, spec, trial)
     task, build = training_setup(spec)
     refit = RefitTask(task)
@@ -227,7 +221,7 @@ def forecast_lines(result: Refit) -> list[str]:
 
 
 def start_line(study: optuna.Study, spec: Spec) -> str:
-    trial = best_trial(study)
+    trial = chosen_trial(study, spec)
     return (
         f"# final fit of trial {trial.number} on training + validation data "
         f"for {_epochs(trial, spec)} epochs; the held-out split is scored once, at the end"

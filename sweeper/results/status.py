@@ -5,11 +5,15 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
+import optuna
 from optuna.trial import FrozenTrial
 from rich.console import Console
 from rich.table import Table
 
+from sweeper.errors import InputError
+from sweeper.results.choice import confirmed_choice
 from sweeper.results.summary_stamp import read_stamp
+from sweeper.spec.sections import Spec
 from sweeper.store import trial_words as words
 from sweeper.store.connect import redact
 from sweeper.sweep.progress import Snapshot, format_seconds
@@ -54,6 +58,11 @@ def status_table(snap: Snapshot) -> str:
     buffer = io.StringIO()
     console = Console(file=buffer, width=110, color_system=None)
     console.print(summary)
+    if counts.confirmed or counts.confirming:
+        console.print(
+            f"confirmation trials (outside the budget): {counts.confirmed} finished, "
+            f"{counts.confirming} running or waiting"
+        )
     if snap.running:
         running = Table(title="running trials")
         for column in ("trial", "epoch", "age", "worker"):
@@ -88,3 +97,11 @@ def stale_summary_line(page: Path, trials: list[FrozenTrial], location: str) -> 
         f"(written {stamp.written:%Y-%m-%d %H:%M} UTC); "
         f"refresh with: sweeper report {redact(location)}"
     )
+
+
+def choice_lines(study: optuna.Study, spec: Spec) -> list[str]:
+    """The configuration the study chooses now (confirmed or not yet), in words."""
+    try:
+        return confirmed_choice(study, spec).lines()
+    except InputError:  # nothing completed yet: the table says so
+        return []

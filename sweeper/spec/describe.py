@@ -54,9 +54,21 @@ def describe_spec(spec: Spec) -> str:
         f"  budget   {budget} trials{epochs} on {study.workers} worker(s); "
         f"storage {spec.storage_location}"
     )
+    lines.append(f"  confirm  {_confirmation(spec)}")
     if not spec.is_objective_plugin:
         lines.append(f"  compute  {_planned(spec)}")
     return "\n".join(lines)
+
+
+def _confirmation(spec: Spec) -> str:
+    confirm = spec.confirm
+    if not confirm.enabled:
+        return "off: the best trial is the choice, from one seed"
+    return (
+        f"the best {confirm.configurations} configurations again with {confirm.seeds} fresh "
+        f"seeds each, after the budget and outside it (up to "
+        f"{confirm.configurations * confirm.seeds} more trials)"
+    )
 
 
 def _forecast_lines(task: Task) -> list[str]:

@@ -32,6 +32,9 @@ MUTABLE_KEYS = (
     "study.workers",
     "study.storage",
     "study.heartbeat",
+    # confirmation runs after the search and never changes a searched trial
+    "confirm.configurations",
+    "confirm.seeds",
 )
 
 
@@ -123,6 +126,24 @@ class StoppingSection:
 
 
 @dataclass(frozen=True)
+class ConfirmSection:
+    """After the search: the best ``configurations`` trained again with ``seeds`` fresh seeds
+    each (0 configurations: no confirmation)."""
+
+    configurations: int = 3
+    seeds: int = 3
+
+    def __post_init__(self) -> None:
+        _check_field_types(self, "confirm")
+        _require_min("confirm.configurations", self.configurations, 0)
+        _require_min("confirm.seeds", self.seeds, 1)
+
+    @property
+    def enabled(self) -> bool:
+        return self.configurations > 0
+
+
+@dataclass(frozen=True)
 class Spec:
     source: str
     text: str
@@ -131,6 +152,7 @@ class Spec:
     training: TrainingSection
     search: dict[str, SearchEntry]
     stopping: StoppingSection
+    confirm: ConfirmSection = field(default_factory=lambda: ConfirmSection())
     # the settings a command line set for this launch (``with_overrides``), not the file
     overrides: frozenset[str] = frozenset()
 
@@ -165,6 +187,7 @@ class Spec:
             "training": dataclasses.asdict(self.training),
             "search": {name: entry.describe() for name, entry in sorted(self.search.items())},
             "stopping": dataclasses.asdict(self.stopping),
+            "confirm": dataclasses.asdict(self.confirm),
         }
 
     def digest(self) -> str:
@@ -173,6 +196,8 @@ class Spec:
             section, name = key.split(".")
             data[section].pop(name, None)
         _as_before_scores(data)
+        if not data["confirm"]:  # every key mutable: digests of older studies still match
+            del data["confirm"]
         text = json.dumps(data, sort_keys=True, default=str)
         return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
@@ -240,7 +265,7 @@ def spec_from_text(text: str, source: str) -> Spec:
 
 
 def _spec_from_tables(data: Mapping[str, Any], text: str, source: str) -> Spec:
-    _check_keys("", data, ("study", "task", "training", "search", "stopping"))
+    _check_keys("", data, ("study", "task", "training", "search", "stopping", "confirm"))
     for section in ("study", "task"):
         if section not in data:
             raise SectionError(section, f"missing section; add a [{section}] table")
@@ -251,8 +276,9 @@ def _spec_from_tables(data: Mapping[str, Any], text: str, source: str) -> Spec:
     training = _parse_training(data.get("training", {}))
     search = parse_search(source, data.get("search", {}))
     stopping = _section("stopping", StoppingSection, data.get("stopping", {}))
+    confirm = _section("confirm", ConfirmSection, data.get("confirm", {}))
     task = task_section(data["task"], source)
-    return Spec(source, text, study, task, training, search, stopping)
+    return Spec(source, text, study, task, training, search, stopping, confirm)
 
 
 def _kind(value: Any) -> str:

@@ -19,6 +19,8 @@ Study user attributes (written at each launch by ``write_launch``; the report, t
 ``budget``          the trial budget; changed only by a launch that adds trials (``launch_budget``)
 ``workers``         the spec file's worker count (a --workers override is not stored)
 ``stop_request``    null, or why every worker should stop now (``set_stop_request``)
+``choice``          the confirmed choice once a sweep ends (``record_choice``): ``{trial,
+                    mean, std, stderr, seeds, told_apart_from_runners_up, tied_with}``, or null
 ==================  ==========================================================================
 
 Trial user attributes (written by the runner and the worker loop through the ``record_*``
@@ -38,9 +40,12 @@ functions; read through ``TrialInfo``):
 ``diverged``            true when it stopped because its loss went non-finite
 ``failure``             ``{type, message, traceback}`` of the exception it raised
 ``interrupted``         true when a stop request ended it; the next launch continues it
-``confirms``            the trial whose configuration it repeats with another seed
 ``retry_of``            the trial it retries or continues (its origin), when not itself
 ``resumed_from_epoch``  the epoch its origin's checkpoint had reached
+``confirms``            a confirmation trial: the searched trial whose parameters it trains
+                        again with a fresh seed (absent on searched trials); queued with it,
+                        so retries and continuations carry it too
+``confirm_round``       which of the confirmation seeds (1, 2, ...) that trial trains with
 ``draw``                ``{stream, redraws}``: the sampler stream of its worker start, and how
                         many drawn configurations it refused as copies of finished or running
                         trials
@@ -69,6 +74,8 @@ from optuna.trial import FrozenTrial
 from sweeper.store.optuna_internals import frozen_copy, study_user_attrs
 
 STOP_REQUEST = "stop_request"
+CHOICE = "choice"
+CONFIRMS, CONFIRM_ROUND = "confirms", "confirm_round"
 
 
 def _int(value: Any) -> int | None:
@@ -144,6 +151,11 @@ def write_launch(study: optuna.Study, launch: StudyLaunch) -> None:
         study.set_user_attr(key, value)
 
 
+def record_choice(study: optuna.Study, choice: Mapping[str, Any] | None) -> None:
+    """The confirmed choice as plain numbers (``sweeper.results.choice``), or none."""
+    study.set_user_attr(CHOICE, None if choice is None else dict(choice))
+
+
 def set_stop_request(study: optuna.Study, reason: str | None) -> None:
     """Ask every worker of the study to stop (``None``: withdraw the request)."""
     study.set_user_attr(STOP_REQUEST, reason)
@@ -211,6 +223,11 @@ class StudyInfo:
     def stop_request(self) -> str | None:
         reason = self.attrs.get(STOP_REQUEST)
         return reason if isinstance(reason, str) else None
+
+    @property
+    def choice(self) -> dict[str, Any] | None:
+        raw = self.attrs.get(CHOICE)
+        return dict(raw) if isinstance(raw, Mapping) else None
 
 
 @dataclass(frozen=True)
@@ -300,17 +317,25 @@ class TrialInfo:
         return bool(self.user.get("interrupted", False))
 
     @property
-    def confirms(self) -> int | None:
-        """The trial whose configuration this one repeats with another seed, if any."""
-        return _int(self.user.get("confirms"))
-
-    @property
     def retry_of(self) -> int | None:
         return _int(self.user.get("retry_of"))
 
     @property
     def resumed_from_epoch(self) -> int | None:
         return _int(self.user.get("resumed_from_epoch"))
+
+    @property
+    def confirms(self) -> int | None:
+        """The searched trial a confirmation trial repeats; None for a searched trial."""
+        return _int(self.user.get(CONFIRMS))
+
+    @property
+    def confirm_round(self) -> int | None:
+        return _int(self.user.get(CONFIRM_ROUND))
+
+    @property
+    def is_confirmation(self) -> bool:
+        return self.confirms is not None
 
     @property
     def draw(self) -> tuple[int, int] | None:
@@ -351,6 +376,20 @@ def continuation_system_attrs(interrupted: TrialInfo) -> dict[str, Any]:
         "retry_history": [*interrupted.retry_history, interrupted.number],
         "continues_interrupted": interrupted.number,
     }
+
+
+def confirmation_user_attrs(searched: int, round_: int) -> dict[str, int]:
+    """User attributes a confirmation trial is queued with."""
+    return {CONFIRMS: searched, CONFIRM_ROUND: round_}
+
+
+def continuation_user_attrs(interrupted: TrialInfo) -> dict[str, int]:
+    """User attributes a continuation keeps from the trial it continues (a confirmation
+    trial stays one, with the same seed)."""
+    searched, round_ = interrupted.confirms, interrupted.confirm_round
+    if searched is None or round_ is None:
+        return {}
+    return confirmation_user_attrs(searched, round_)
 
 
 def record_start(trial: optuna.Trial, seed: int, worker: str, origin: int) -> None:

@@ -41,10 +41,13 @@ class Snapshot:
         best = "-" if self.best_value is None else f"{self.best_value:.5g} (#{self.best_trial})"
         eta = "-" if self.eta_seconds is None else format_seconds(self.eta_seconds)
         interrupted = f", {c.interrupted} {words.INTERRUPTED}" if c.interrupted else ""
+        confirming = ""
+        if c.confirmed or c.confirming:
+            confirming = f"; confirmation {c.confirmed} done, {c.confirming} to go"
         return (
             f"{self.study_name}: {c.finished}/{self.budget} done "
             f"({c.complete} {words.FINISHED}, {c.pruned} {words.STOPPED}), "
-            f"{c.running} {words.RUNNING}, {c.failed} {words.FAILED}{interrupted}; "
+            f"{c.running} {words.RUNNING}, {c.failed} {words.FAILED}{interrupted}{confirming}; "
             f"best {best}; ETA {eta}"
         )
 
@@ -70,7 +73,7 @@ def _eta(trials: list[FrozenTrial], counts: Tally, budget: int, workers: int) ->
         and t.datetime_start is not None
         and t.datetime_complete is not None
     ]
-    remaining = max(0, budget - counts.finished)
+    remaining = max(0, budget - counts.finished) + counts.confirming  # confirmation comes after
     if remaining == 0:
         return 0.0
     if not durations:

@@ -14,7 +14,7 @@ import optuna
 import sqlalchemy as sa
 import torch
 
-from sweeper.seeds import trial_seed
+from sweeper.seeds import confirmation_seed, trial_seed
 from sweeper.spec.schedule import spec_schedule
 from sweeper.spec.sections import Spec
 from sweeper.spec.space import draw
@@ -68,12 +68,21 @@ def worst_value(spec: Spec) -> float:
 def run_trial(trial: optuna.Trial, ctx: TrialContext) -> float:
     """Run one trial; raise optuna.TrialPruned when stopped early or diverged."""
     params = _draw_distinct(trial, ctx.spec)
-    origin = TrialInfo.live(trial).origin  # the trial it retries or continues, or itself
-    seed = trial_seed(ctx.spec.study.seed, origin)
+    info = TrialInfo.live(trial)
+    origin = info.origin  # the trial it retries or continues, or itself
+    seed = _seed_of(ctx.spec, info)
     attrs.record_start(trial, seed, ctx.worker, origin)
     if ctx.spec.is_objective_plugin:
-        return _run_objective(trial, ctx, params)
+        return _run_objective(trial, ctx, params, info.is_confirmation)
     return _run_training(trial, ctx, params, seed, origin)
+
+
+def _seed_of(spec: Spec, info: TrialInfo) -> int:
+    """A searched trial's seed follows its origin's number; a confirmation trial's, the
+    searched trial it repeats and its round (a fresh seed, the same for its retries)."""
+    if info.confirms is not None and info.confirm_round is not None:
+        return confirmation_seed(spec.study.seed, info.confirms, info.confirm_round)
+    return trial_seed(spec.study.seed, info.origin)
 
 
 def _draw_distinct(trial: optuna.Trial, spec: Spec) -> dict[str, Any]:
@@ -123,6 +132,8 @@ class EpochReporter:
         self._trial, self._ctx, self._run, self._origin = trial, ctx, run, origin
         self.compute = sum(record.seconds for record in run.records)
         self.schedule = spec_schedule(ctx.spec)
+        # a confirmation trial measures its configuration to the end: nothing stops it early
+        self.may_stop = not TrialInfo.live(trial).is_confirmation
 
     def record(self, record: EpochRecord) -> None:
         ctx, trial, epoch = self._ctx, self._trial, record.epoch
@@ -134,7 +145,7 @@ class EpochReporter:
     def stop_reason(self, record: EpochRecord) -> str | None:
         # the stopping rule decides on each epoch's own value, whatever the score
         self._trial.report(objective_value(self._ctx.spec, record), record.epoch)
-        if self._may_stop(record.epoch) and self._trial.should_prune():
+        if self.may_stop and self._may_stop(record.epoch) and self._trial.should_prune():
             return f"stopped early after epoch {record.epoch}"
         return None
 
@@ -188,7 +199,9 @@ def _plugin_record(epoch: int, value: float) -> EpochRecord:
     return EpochRecord(epoch, nan, value, nan, nan, nan, nan, nan, nan, 0, 0, nan, nan)
 
 
-def _run_objective(trial: optuna.Trial, ctx: TrialContext, params: dict) -> float:
+def _run_objective(
+    trial: optuna.Trial, ctx: TrialContext, params: dict, confirming: bool = False
+) -> float:
     assert ctx.objective is not None, "an objective-plugin trial needs its function"
 
     def report(epoch: int, value: float) -> None:
@@ -197,7 +210,7 @@ def _run_objective(trial: optuna.Trial, ctx: TrialContext, params: dict) -> floa
         )
         attrs.record_progress(trial, epoch)
         trial.report(float(value), epoch)
-        if trial.should_prune():
+        if not confirming and trial.should_prune():
             reason = f"stopped early after step {epoch}"
             attrs.record_end(trial, reason)
             raise optuna.TrialPruned(reason)

@@ -32,11 +32,15 @@ from sweeper.store.attrs import (
     StudyInfo,
     StudyLaunch,
     TrialInfo,
+    confirmation_user_attrs,
     continuation_system_attrs,
+    continuation_user_attrs,
     set_stop_request,
     write_launch,
 )
 from sweeper.store.connect import open_storage, redact
+from sweeper.sweep import confirmation
+from sweeper.sweep.confirmation import searched_only
 from sweeper.sweep.distinct_sampler import DistinctSampler
 
 FINISHED = (TrialState.COMPLETE, TrialState.PRUNED)
@@ -160,6 +164,8 @@ def changed_keys(old: dict[str, Any], new: dict[str, Any], prefix: str = "") -> 
     for key in sorted(set(old) | set(new)):
         dotted = f"{prefix}{key}"
         a, b = old.get(key), new.get(key)
+        if isinstance(a, dict) or isinstance(b, dict):  # a section an older spec lacks: {}
+            a, b = a if a is not None else {}, b if b is not None else {}
         if isinstance(a, dict) and isinstance(b, dict):
             keys += changed_keys(a, b, f"{dotted}.")
         elif a != b:
@@ -229,7 +235,8 @@ def load_existing(
 
 @dataclass(frozen=True)
 class Tally:
-    """Trials of a study by state, as the budget sees them."""
+    """Trials of a study by state, as the budget sees them: the searched trials, and the
+    confirmation trials (which the budget does not count) apart."""
 
     complete: int
     pruned: int
@@ -237,6 +244,8 @@ class Tally:
     running: int
     waiting: int
     interrupted: int = 0  # stopped by a signal; continued by the next launch
+    confirmed: int = 0  # confirmation trials finished
+    confirming: int = 0  # confirmation trials running or waiting
 
     @property
     def finished(self) -> int:
@@ -244,11 +253,15 @@ class Tally:
 
 
 def tally(trials: list[FrozenTrial]) -> Tally:
+    extra = [t for t in trials if TrialInfo.of(t).is_confirmation]
+    trials = searched_only(trials)
     counts = Counter(trial.state for trial in trials)
     interrupted = sum(
         1 for t in trials if t.state == TrialState.FAIL and TrialInfo.of(t).interrupted
     )
     return Tally(
+        confirmed=sum(t.state in FINISHED for t in extra),
+        confirming=sum(t.state in (TrialState.RUNNING, TrialState.WAITING) for t in extra),
         complete=counts[TrialState.COMPLETE],
         pruned=counts[TrialState.PRUNED],
         failed=counts[TrialState.FAIL] - interrupted,
@@ -262,11 +275,12 @@ def over_budget(trials: list[FrozenTrial], trial_number: int, budget: int) -> bo
     """Whether a just-claimed trial would exceed the budget.
 
     Counts the finished trials and the running ones claimed before it (lower numbers), so
-    that every worker agrees on which claim is the surplus one.
+    that every worker agrees on which claim is the surplus one. Confirmation trials are not
+    counted.
     """
     ahead = sum(
         1
-        for t in trials
+        for t in searched_only(trials)
         if t.state in FINISHED or (t.state == TrialState.RUNNING and t.number < trial_number)
     )
     return ahead >= budget
@@ -290,7 +304,9 @@ class ComputeUse:
 
 
 def compute_use(trials: list[FrozenTrial], before: int | None = None) -> ComputeUse:
-    """``before``: count only the running trials claimed before that trial number."""
+    """``before``: count only the running trials claimed before that trial number.
+    Confirmation trials are not counted: they are no part of the search's budget."""
+    trials = searched_only(trials)
     done = [compute_seconds(t) for t in trials if t.state in FINISHED]
     running = [
         compute_seconds(t)
@@ -318,13 +334,35 @@ def compute_room(trials: list[FrozenTrial], spec: Spec, before: int | None = Non
     return max(0, math.floor((limit - use.committed) / use.expected))
 
 
-def budget_met(trials: list[FrozenTrial], spec: Spec) -> bool:
-    """Whether a worker may stop: the trials are finished or no further trial fits."""
+def search_budget_met(trials: list[FrozenTrial], spec: Spec) -> bool:
+    """The searched trials are finished, or no further one fits the compute budget."""
     return tally(trials).finished >= budget_of(spec) or compute_room(trials, spec) == 0
 
 
+def search_over(trials: list[FrozenTrial], spec: Spec) -> bool:
+    """The search budget is met and no searched trial runs or waits: confirmation may start."""
+    now = tally(trials)
+    return not (now.running or now.waiting) and search_budget_met(trials, spec)
+
+
+def budget_met(trials: list[FrozenTrial], spec: Spec) -> bool:
+    """Whether a worker may stop: the search budget is met and every confirmation trial it
+    calls for is finished."""
+    return search_budget_met(trials, spec) and not confirmation.unfinished(trials, spec)
+
+
+def work_left(trials: list[FrozenTrial], spec: Spec) -> bool:
+    """Searched trials still to finish, or confirmation trials."""
+    searching = tally(trials).finished < budget_of(spec)
+    return searching or bool(confirmation.unfinished(trials, spec))
+
+
 def claim_exceeds_budget(trials: list[FrozenTrial], trial_number: int, spec: Spec) -> bool:
-    """Whether a just-claimed trial exceeds the trial budget or the compute budget."""
+    """Whether a just-claimed trial exceeds the trial budget or the compute budget (a
+    confirmation trial never does)."""
+    claimed = next((t for t in trials if t.number == trial_number), None)
+    if claimed is not None and TrialInfo.of(claimed).is_confirmation:
+        return False
     if over_budget(trials, trial_number, budget_of(spec)):
         return True
     return compute_room(trials, spec, before=trial_number) == 0
@@ -335,7 +373,8 @@ def top_up(study: optuna.Study, spec: Spec) -> int:
 
     Budget = finished (complete + pruned) + running + waiting; failed trials do not count, so a
     failure is replaced. Under a compute budget at most one trial per worker waits or runs, so
-    each launch decision uses the latest cost estimate. Returns the number queued.
+    each launch decision uses the latest cost estimate. Once the search is over, the
+    confirmation trials it calls for are queued too. Returns the number queued.
     """
     before = tally(study.get_trials(deepcopy=False))
     # continuations count against the budget too: never queue one beyond it
@@ -346,13 +385,24 @@ def top_up(study: optuna.Study, spec: Spec) -> int:
     room = compute_room(trials, spec)
     if room is not None:
         need = min(need, room - now.waiting, spec.study.workers - now.running - now.waiting)
-    if need <= 0:
+    if need > 0:
+        if spec.study.sampler == "grid":
+            return _queue_grid_points(study, spec, trials, need)
+        for _ in range(need):
+            study.enqueue_trial({})
+        return need
+    if not search_over(trials, spec):
         return 0
-    if spec.study.sampler == "grid":
-        return _queue_grid_points(study, spec, trials, need)
-    for _ in range(need):
-        study.enqueue_trial({})
-    return need
+    return _queue_confirmations(study, spec, trials)
+
+
+def _queue_confirmations(study: optuna.Study, spec: Spec, trials: list[FrozenTrial]) -> int:
+    by_number = {t.number: t for t in trials}
+    due = confirmation.missing(trials, spec)
+    for item in due:
+        params = by_number[item.searched].params
+        study.enqueue_trial(params, user_attrs=confirmation_user_attrs(item.searched, item.round))
+    return len(due)
 
 
 def _queue_grid_points(
@@ -386,7 +436,7 @@ def stop_requested(study: optuna.Study) -> str | None:
 
 def requeue_interrupted(study: optuna.Study, limit: int | None = None) -> int:
     """Queue again, with the same parameters, every trial a stop interrupted (at most
-    ``limit`` of them, oldest first).
+    ``limit`` searched trials, oldest first; confirmation trials are outside the budget).
 
     The new trial records which trial it continues in the same system attributes optuna's
     heartbeat retry uses, so it loads that trial's checkpoint. Each continuation lengthens
@@ -395,17 +445,21 @@ def requeue_interrupted(study: optuna.Study, limit: int | None = None) -> int:
     trials = study.get_trials(deepcopy=False)
     continued = {number for t in trials for number in TrialInfo.of(t).retry_history}
     queued = 0
+    searched = 0
     for trial in trials:
-        if limit is not None and queued >= limit:
-            break
         info = TrialInfo.of(trial)
         if trial.state != TrialState.FAIL or not info.interrupted or trial.number in continued:
             continue
+        if not info.is_confirmation:
+            if limit is not None and searched >= limit:
+                continue
+            searched += 1
         study.add_trial(
             optuna.create_trial(
                 state=TrialState.WAITING,
                 params=trial.params,
                 distributions=trial.distributions,
+                user_attrs=continuation_user_attrs(info),
                 system_attrs=continuation_system_attrs(info),
             )
         )

@@ -48,7 +48,6 @@ from sweeper.sweep.runner import (
 )
 from sweeper.sweep.study import (
     budget_met,
-    budget_of,
     claim_exceeds_budget,
     load_existing,
     make_pruner,
@@ -57,6 +56,7 @@ from sweeper.sweep.study import (
     request_stop,
     stop_requested,
     tally,
+    work_left,
 )
 from sweeper.training.trial_run import TrainingInterrupted
 
@@ -205,9 +205,7 @@ def _claim_and_run(
         if claimed is None:
             trials = study.get_trials(deepcopy=False)
             waited = time.monotonic() - idle_since
-            if budget_met(trials, spec) or (
-                waited > IDLE_GIVE_UP_SECONDS and not tally(trials).running
-            ):
+            if budget_met(trials, spec) or (waited > IDLE_GIVE_UP_SECONDS and not _busy(trials)):
                 break
             time.sleep(IDLE_POLL_SECONDS)
             continue
@@ -220,6 +218,11 @@ def _claim_and_run(
         done += 1
         idle_since = time.monotonic()
     return done
+
+
+def _busy(trials: list) -> bool:
+    now = tally(trials)
+    return bool(now.running or now.confirming)
 
 
 def _give_back_if_surplus(study: optuna.Study, spec: Spec, claimed: int) -> bool:
@@ -408,4 +411,4 @@ def _still_to_run(location: str, study_name: str) -> bool:
     study, spec = load_existing(location, study_name)
     if stop_requested(study) is not None:
         return False
-    return tally(study.get_trials(deepcopy=False)).finished < budget_of(spec)
+    return work_left(study.get_trials(deepcopy=False), spec)
