@@ -59,6 +59,7 @@ class StudySummary:
     spec_text: str
     spec_hash: str
     spec_source: str = ""  # the spec file's absolute path: relative data paths start there
+    choice: dict[str, Any] | None = None  # the confirmed choice stored when a sweep ended
 
 
 @dataclass(frozen=True)
@@ -217,6 +218,7 @@ def _summary(
         spec_text=_text(info.spec_text),
         spec_hash=_text(info.spec_hash),
         spec_source=info.spec_source,
+        choice=info.choice,
     )
 
 

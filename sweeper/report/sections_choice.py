@@ -2,8 +2,9 @@
 
 ``choice_section`` takes the chosen configuration and the task's baselines as plain values,
 so that a configuration confirmed over several seeds, and a task with several named
-baselines, slot in without touching the page: today ``chosen_from_trials`` reads the best
-finished trial and ``baselines_of`` the one baseline the study stores.
+baselines, slot in without touching the page: ``chosen_from_trials`` reads the choice the
+sweep stored (confirmed over seeds) or else the best finished trial, ``baselines_of`` the one
+baseline the study stores and ``series_baselines`` a forecasting study's named ones.
 """
 
 from __future__ import annotations
@@ -54,11 +55,34 @@ class NamedBaseline:
 
 
 def chosen_from_trials(tables: StudyTables) -> Chosen | None:
-    """The best finished trial, as one training run (no seeds repeated yet)."""
+    """The choice the sweep stored when it ended (a configuration's mean over its seeds), or
+    else the best finished trial as one training run."""
+    stored = _stored_choice(tables)
+    if stored is not None:
+        return stored
     top = best(tables)
     if top is None:
         return None
     return Chosen(top.number, dict(top.params), top.value, distributions=dict(top.distributions))
+
+
+def _stored_choice(tables: StudyTables) -> Chosen | None:
+    stored = tables.summary.choice or {}
+    row = next((t for t in tables.trials if t.number == stored.get("trial")), None)
+    mean = stored.get("mean")
+    if row is None or not isinstance(mean, (int, float)) or not math.isfinite(mean):
+        return None
+    spread = stored.get("std")
+    return Chosen(
+        row.number,
+        dict(row.params),
+        float(mean),
+        spread=float(spread) if isinstance(spread, (int, float)) else math.nan,
+        seeds=int(stored.get("seeds") or 1),
+        runners_up=tuple(int(n) for n in stored.get("tied_with") or ()),
+        confirmed=bool(stored.get("confirmed")),
+        distributions=dict(row.distributions),
+    )
 
 
 def baselines_of(tables: StudyTables) -> list[NamedBaseline]:
