@@ -228,7 +228,7 @@ def test_a_single_trial_renders(tmp_path: Path) -> None:
         0, value=0.5, params={"lr": 0.01}, distributions=space, curve=[0.9, 0.5]
     )
     page = _page(_study(tmp_path / "one.db", "one", [trial]))
-    assert "needs at least 8 completed trials; the study has 1" in page
+    assert "needs at least 8 trials that reached one epoch; at most 1 of the 1 finished" in page
     assert "Held at one value in every finished trial: lr." in page
     assert "No searched parameter took more than one value." in page
     assert "figure-curves" in _figures(page)

@@ -95,11 +95,9 @@ def overlapping(rows: Sequence[Importance]) -> dict[str, list[str]]:
 def importance_section(tables: StudyTables, result: ImportanceResult, book: FigureBook) -> str:
     parts = [book.slot("importance", importance_figure(result))]
     if result.rows:
-        epochs = sorted({t.epochs for t in tables.completed()})
-        at = f"epoch {epochs[0]}" if len(epochs) == 1 else "each trial's last epoch"
         parts.append(
             para(
-                f"Rests on {result.trials_used} finished trials, scored at {at}. Importance "
+                f"Rests on {result.basis}. Importance "
                 f"is how strongly a parameter sets the best {TOP_QUANTILE:.0%} of trials "
                 f"apart from the rest (PED-ANOVA), as a share of the total; the interval is "
                 f"the central {result.level:.0%} of {result.replicates} bootstrap resamples."
@@ -108,6 +106,8 @@ def importance_section(tables: StudyTables, result: ImportanceResult, book: Figu
         ties = overlapping(result.rows)
         if len(result.rows) > 1 and all(len(v) == len(result.rows) - 1 for v in ties.values()):
             parts.append(para("All intervals overlap: the data cannot rank these parameters."))
+        elif not result.ranked:
+            parts.append(para(f"Not ranked: {result.note}."))
         rows = [
             [
                 r.name,
