@@ -40,6 +40,7 @@ from typing import Any
 
 import optuna
 import torch
+from held_out import HeldOut
 from measure import REPO, machine_line, median, print_table
 
 sys.path.insert(0, str(REPO))
@@ -47,7 +48,7 @@ sys.path.insert(0, str(REPO))
 from sweeper.seeds import trial_seed
 from sweeper.spec.schedule import Schedule, choose_schedule, finishers_needed
 from sweeper.spec.sections import SCORES, StoppingSection, StudySection
-from sweeper.tasks.base import SequenceSet, Split, Task
+from sweeper.tasks.base import Task
 from sweeper.tasks.registry import build_task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.params import TrialParams
@@ -69,26 +70,6 @@ class Setting:
 
 FULL = Setting(seeds=5, trials=24, epochs=8, fresh=3, scale=2)
 QUICK = Setting(seeds=2, trials=6, epochs=4, fresh=2, scale=1)
-
-
-class HeldOut(Task):
-    """``task``'s training split, and ``held_out`` as its validation split."""
-
-    def __init__(self, task: Task, held_out: SequenceSet) -> None:
-        self.task, self._held_out = task, held_out
-        self.name, self.kind, self.length = task.name, task.kind, task.length
-        self.input_size, self.output_size = task.input_size, task.output_size
-        self.metric_name = task.metric_name
-        self.metric_higher_is_better = task.metric_higher_is_better
-
-    def data(self, split: Split) -> SequenceSet:
-        return self.task.data("train") if split == "train" else self._held_out
-
-    def baseline(self) -> Any:
-        return self.task.baseline()
-
-    def metric(self, outputs: torch.Tensor, data: SequenceSet) -> float:
-        return self.task.metric(outputs, data)
 
 
 def generated(kind: str, scale: int, **options: Any) -> tuple[Task, Task]:

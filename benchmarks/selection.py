@@ -45,6 +45,7 @@ from typing import Any
 
 import numpy as np
 import torch
+from held_out import HeldOut
 from measure import REPO, machine_line, median, print_table
 
 sys.path.insert(0, str(REPO))
@@ -60,7 +61,7 @@ from sweeper.sweep.confirmation import ranked_searched
 from sweeper.sweep.launcher import run_sweep
 from sweeper.sweep.progress import ProgressDisplay
 from sweeper.sweep.study import load_existing
-from sweeper.tasks.base import Baseline, SequenceSet, Split, Task
+from sweeper.tasks.base import Task
 from sweeper.tasks.registry import build_task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.model_plugin import section_model_builder
@@ -112,29 +113,6 @@ class Setting:
 
 FULL = Setting(seeds=7, trials=12, epochs=8, train=384, length=20)
 QUICK = Setting(seeds=2, trials=3, epochs=2, train=32, length=8)
-
-
-class HeldOut(Task):
-    """``task``'s training sequences, validated on ``held_out`` (data no study saw)."""
-
-    def __init__(self, task: Task, held_out: SequenceSet) -> None:
-        self.task, self._held_out = task, held_out
-        self.name, self.kind, self.length = task.name, task.kind, task.length
-        self.input_size, self.output_size = task.input_size, task.output_size
-        self.metric_name = task.metric_name
-        self.metric_higher_is_better = task.metric_higher_is_better
-
-    def data(self, split: Split) -> SequenceSet:
-        return self.task.data("train") if split == "train" else self._held_out
-
-    def baseline(self) -> Baseline:
-        return self.task.baseline()
-
-    def metric(self, outputs: torch.Tensor, data: SequenceSet) -> float:
-        return self.task.metric(outputs, data)
-
-    def describe(self) -> str:
-        return self.task.describe()
 
 
 def score_support() -> bool:
