@@ -50,8 +50,8 @@ import torch
 from measure import REPO, child_env, machine_line, median, print_table, timed_subprocess
 
 from sweeper.tasks.base import Baseline, SequenceSet, Split, Task
+from sweeper.training.numerics import SWITCH
 from sweeper.training.params import TrialParams
-from sweeper.training.recurrence import SWITCH
 from sweeper.training.trial_run import TrialRun
 
 GATES = {"lstm": 4, "gru": 3, "elman": 1}

@@ -18,13 +18,16 @@ from sweeper.tasks.base import Baseline, Kind, SequenceSet, Split, Task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.models import build_model
+from sweeper.training.numerics import LATEST, TORCH_MODULES
 from sweeper.training.params import CELLS, TrialParams
+from sweeper.training.recurrence import WindowGRU
 from sweeper.training.trial_run import (
     TrainingInterrupted,
     TrialRun,
     build_optimizer,
     clip_gradients,
     divergence_reason,
+    saved_revision,
     step_losses,
     weighted_mean,
 )
@@ -464,6 +467,39 @@ def test_a_state_from_other_parameters_is_refused() -> None:
     state = TrialRun(task, LIVELY, seed=5).state_dict()
     with pytest.raises(ValueError, match="other parameters or another seed"):
         TrialRun(task, LIVELY, seed=6).load_state_dict(state)
+
+
+LIVELY_GRU = dataclasses.replace(LIVELY, cell="gru")
+
+
+def revision_records(revision: str, epochs: int = 3) -> list[dict[str, object]]:
+    run = TrialRun(regression_task(n=10), LIVELY_GRU, seed=5, revision=revision)
+    assert (type(run.model.rnn) is WindowGRU) == (revision == LATEST)  # type: ignore[attr-defined]
+    for _ in range(epochs):
+        run.run_epoch()
+    return timeless(run.records)
+
+
+def test_each_revision_repeats_itself_exactly_and_they_differ() -> None:
+    old, new = revision_records(TORCH_MODULES), revision_records(LATEST)
+    assert revision_records(TORCH_MODULES) == old and revision_records(LATEST) == new
+    assert old != new  # our recurrence sums in another order: close, not bit for bit
+
+
+def test_a_state_continues_in_the_revision_it_was_trained_with() -> None:
+    task = regression_task(n=10)
+    first = TrialRun(task, LIVELY_GRU, seed=5, revision=TORCH_MODULES)
+    first.run_epoch()
+    state = first.state_dict()
+    del state["revision"]  # a checkpoint written before revisions were recorded
+    assert saved_revision(state) == TORCH_MODULES
+    with pytest.raises(ValueError, match="trainer revision 'torch-modules'"):
+        TrialRun(task, LIVELY_GRU, seed=5, revision=LATEST).load_state_dict(state)
+    resumed = TrialRun(task, LIVELY_GRU, seed=5, revision=saved_revision(state))
+    resumed.load_state_dict(state)
+    resumed.run_epoch()
+    resumed.run_epoch()
+    assert timeless(resumed.records) == revision_records(TORCH_MODULES)
 
 
 def test_trial_seeds_the_model_and_leaves_the_callers_streams_alone() -> None:

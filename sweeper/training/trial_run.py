@@ -26,6 +26,7 @@ from sweeper.seeds import derive_seed
 from sweeper.tasks.base import Kind, SequenceSet, Task
 from sweeper.training.epoch_record import EpochRecord, summarize_norms
 from sweeper.training.models import ModelBuilder, Recurrent, State, build_model
+from sweeper.training.numerics import TORCH_MODULES, building, current_revision, numerics
 from sweeper.training.params import TrialParams
 
 STATE_FORMAT = 1
@@ -114,14 +115,25 @@ class _Tally:
 
 
 class TrialRun:
-    """One trial, an epoch at a time (``run_epochs`` drives it); ``state_dict()`` between."""
+    """One trial, an epoch at a time (``run_epochs`` drives it); ``state_dict()`` between.
+
+    ``revision`` (training/numerics.py) picks the code paths; a replay or a continuation
+    passes the one the trial recorded, a new trial the current one.
+    """
 
     def __init__(
-        self, task: Task, params: TrialParams, seed: int, build: ModelBuilder = build_model
+        self,
+        task: Task,
+        params: TrialParams,
+        seed: int,
+        build: ModelBuilder = build_model,
+        revision: str | None = None,
     ) -> None:
         self.task = task
         self.params = params
         self.seed = seed
+        self.revision = current_revision() if revision is None else revision
+        self.numerics = numerics(self.revision)
         self._train = _contiguous(task.data("train"))
         self._valid = _contiguous(task.data("valid"))
         length = self._train.inputs.shape[1]
@@ -139,7 +151,8 @@ class TrialRun:
         np.random.seed(seed)
         torch.manual_seed(seed)
         try:
-            self.model: Recurrent = build(params, task.input_size, task.output_size)
+            with building(self.revision):
+                self.model: Recurrent = build(params, task.input_size, task.output_size)
             self.optimizer = build_optimizer(params, self.model)
             self._rng = _global_rng()
         finally:
@@ -265,6 +278,7 @@ class TrialRun:
             "format": STATE_FORMAT,
             "params": self.params.as_dict(),
             "seed": self.seed,
+            "revision": self.revision,
             "epoch": self._epoch,
             "records": [record.as_dict() for record in self._records],
             "model": copy.deepcopy(self.model.state_dict()),
@@ -280,6 +294,11 @@ class TrialRun:
             raise ValueError(f"unknown trial state format {state.get('format')!r}")
         if state["params"] != self.params.as_dict() or state["seed"] != self.seed:
             raise ValueError("the saved trial state belongs to other parameters or another seed")
+        if saved_revision(state) != self.revision:
+            raise ValueError(
+                f"the saved trial state was trained with trainer revision "
+                f"{saved_revision(state)!r}, this run with {self.revision!r}"
+            )
         self.model.load_state_dict(state["model"])
         self.optimizer.load_state_dict(state["optimizer"])
         self._epoch = int(state["epoch"])
@@ -304,6 +323,11 @@ class TrialRun:
             self._rng = _global_rng()
         finally:
             _set_global_rng(outside)
+
+
+def saved_revision(state: dict[str, Any]) -> str:
+    """The revision a saved trial state was trained with (older states: torch's modules)."""
+    return str(state.get("revision", TORCH_MODULES))
 
 
 def _contiguous(data: SequenceSet) -> SequenceSet:
