@@ -8,6 +8,7 @@ import io
 import math
 from collections.abc import Iterator
 from contextlib import contextmanager
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -27,7 +28,9 @@ from sweeper.training.trial_run import (
     build_optimizer,
     clip_gradients,
     divergence_reason,
+    global_norm,
     saved_revision,
+    scale_above,
     step_losses,
     weighted_mean,
 )
@@ -309,6 +312,46 @@ def test_clip_off_or_below_the_threshold_leaves_gradients_bit_identical(ratio: f
     assert float(returned) == pytest.approx(norm, rel=1e-12)
     for got, unchanged in zip(_grads(weights), before, strict=True):
         assert np.array_equal(got, unchanged)
+
+
+def _float32_grads(seed: int) -> list[torch.Tensor]:
+    generator = torch.Generator().manual_seed(seed)
+    shapes = [(96, 16), (96, 32), (96,), (1, 32)]
+    return _with_grads([torch.randn(s, generator=generator) for s in shapes])
+
+
+@pytest.mark.parametrize("ratio", [0.0, 0.5, 1.0 - 1e-7, 1.0, 1.0 + 1e-7, 3.0])
+def test_lean_clipping_gives_clip_grad_norms_bits(ratio: float) -> None:
+    # reference: torch.nn.utils.clip_grad_norm_ on a copy, compared bit for bit, also within
+    # float32 rounding of the threshold, where torch's factor is just below or at 1
+    ours, theirs = _float32_grads(seed=2), _float32_grads(seed=2)
+    clip = ratio * float(global_norm([w.grad for w in theirs]))
+    want = torch.nn.utils.clip_grad_norm_(theirs, clip if clip > 0 else math.inf)
+    grads = [w.grad for w in ours]
+    norm = global_norm(grads)
+    scale_above(grads, norm, float(norm), clip)
+    assert torch.equal(norm, want)
+    for a, b in zip(ours, theirs, strict=True):
+        assert torch.equal(a.grad, b.grad)
+
+
+@pytest.mark.parametrize("name", ["adam", "sgd", "rmsprop"])
+def test_the_fused_optimizers_step_as_torchs_plain_ones(name: str) -> None:
+    # reference: torch's own single-tensor implementation (foreach=False) from the same state
+    params = TrialParams(optimizer=name, lr=1e-2, momentum=0.9, weight_decay=1e-3)
+    ours, theirs = _float32_grads(seed=3), _float32_grads(seed=3)
+    holder = SimpleNamespace(parameters=lambda: iter(ours))  # all build_optimizer reads
+    fast = build_optimizer(params, holder, LATEST)  # type: ignore[arg-type]
+    settings = {**fast.defaults, "foreach": False}
+    if "fused" in settings:
+        settings["fused"] = None
+    plain = type(fast)(theirs, **settings)
+    assert fast.defaults.get("fused") or fast.defaults.get("foreach")
+    for _ in range(5):
+        fast.step()
+        plain.step()
+    for a, b in zip(ours, theirs, strict=True):
+        torch.testing.assert_close(a, b, rtol=1e-6, atol=1e-7)
 
 
 @pytest.mark.parametrize("clip", [0.0, 0.02])

@@ -29,9 +29,15 @@ class Numerics:
     """The choices of one revision that change a trial's numbers."""
 
     own_recurrence: bool  # Elman and GRU through training/recurrence.py, not torch's modules
+    # fused optimizer kernels (Adam's round differently), clipping that scales only above the
+    # threshold; torch-modules keeps the trainer's older code for these as well
+    lean_step: bool
 
 
-REVISIONS = {TORCH_MODULES: Numerics(own_recurrence=False), WINDOW: Numerics(own_recurrence=True)}
+REVISIONS = {
+    TORCH_MODULES: Numerics(own_recurrence=False, lean_step=False),
+    WINDOW: Numerics(own_recurrence=True, lean_step=True),
+}
 
 
 class UnknownRevision(ValueError):
