@@ -15,11 +15,13 @@ denominator is torch.mm of two 2048 x 2048 float32 matrices on one thread, measu
 before each epoch. "bare" is the same model and windows trained by a plain loop (forward,
 loss, backward, Adam; no clipping, no records), to tell trainer costs from torch's.
 
-Elman and GRU run twice per round, in alternating order: with our window recurrence
-(sweeper/training/recurrence.py, the default) and with torch's own nn.RNN / nn.GRU
-(``SWEEPER_RECURRENCE=torch``); "ours / torch" is the median of the per-round rate ratios and
+Elman and GRU run twice per round, in alternating order: with the current trainer revision
+(our window recurrence, sweeper/training/recurrence.py, with fused optimizer kernels and lean
+clipping, training/numerics.py) and with the oldest one, the trainer as it was before
+(``SWEEPER_RECURRENCE=torch``: torch's own nn.RNN / nn.GRU, torch's default optimizer loop,
+clip_grad_norm_); "ours / torch" is the median of the per-round rate ratios and
 ``slowest_vs_torch`` its smallest value over those cells and widths. LSTM runs torch's nn.LSTM
-(oneDNN) in both, so it is measured once.
+(oneDNN) in both, so it is measured once, with the current revision.
 
 Two more figures, each from child processes so that the two paths do not share a heap:
 - the sweep: search_spaces/copy_gru.toml with the random sampler (its draws do not depend on
@@ -50,9 +52,9 @@ import torch
 from measure import REPO, child_env, machine_line, median, print_table, timed_subprocess
 
 from sweeper.tasks.base import Baseline, SequenceSet, Split, Task
+from sweeper.training.numerics import SWITCH
 from sweeper.training.params import TrialParams
-from sweeper.training.recurrence import SWITCH
-from sweeper.training.trial_run import TrialRun
+from sweeper.training.trial_run import TrialRun, build_optimizer
 
 GATES = {"lstm": 4, "gru": 3, "elman": 1}
 INPUTS, OUTPUTS, UNROLL, WINDOWS = 16, 1, 25, 2
@@ -130,7 +132,7 @@ def bare_epoch_seconds(run: TrialRun, batch: int) -> float:
     import copy
 
     model = copy.deepcopy(run.model)
-    optimizer = torch.optim.Adam(model.parameters(), lr=1e-3)
+    optimizer = build_optimizer(run.params, model, run.revision)  # the trainer's own kind
     train = run.task.data("train")
 
     def epoch() -> None:
@@ -266,6 +268,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--batch", type=int, default=32)
     parser.add_argument("--rounds", type=int, default=5)
     parser.add_argument("--no-sweep", action="store_true", help="skip the sweep and memory")
+    parser.add_argument("--widths", help="comma-separated hidden widths (default 16-256)")
+    parser.add_argument("--cells", help="comma-separated cells (default lstm,gru,elman)")
     parser.add_argument("--memory-child", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.memory_child:
@@ -274,13 +278,16 @@ def main(argv: list[str] | None = None) -> int:
     widths, work, rounds = (16, 32, 64, 128, 256), 2e9, args.rounds
     if args.quick:
         widths, work, rounds = (32, 128, 256), 2e8, 1
+    if args.widths:
+        widths = tuple(int(width) for width in args.widths.split(","))
+    cells = tuple(args.cells.split(",")) if args.cells else tuple(GATES)
     print(machine_line())
     print(f"load before: {os.getloadavg()[0]:.1f}")
     previous = torch.get_num_threads()
     torch.set_num_threads(1)
     try:
         rows = []
-        for cell in GATES:
+        for cell in cells:
             for hidden in widths:
                 got = measure(cell, hidden, args.batch, work, rounds)
                 share, bare = got["share"], got["bare"]
@@ -321,8 +328,9 @@ def report(rows: list[tuple], peak: float, batch: int) -> list[str]:
                 f"the same run, {share / torch_share:.2f}x; target >= {factor}x)"
             )
     gains = [(row[5], row[0], row[1]) for row in rows if row[0] in OURS]
-    slowest, cell, hidden = min(gains)
-    figures.append(f"slowest_vs_torch {slowest:.3f} ({cell} {hidden}; target >= 1.0)")
+    if gains:
+        slowest, cell, hidden = min(gains)
+        figures.append(f"slowest_vs_torch {slowest:.3f} ({cell} {hidden}; target >= 1.0)")
     return figures
 
 

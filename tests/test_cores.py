@@ -64,7 +64,7 @@ def _with_threads(folder: Path, threads: int) -> Spec:
 def _running_trial(study: optuna.Study, pid: int, threads: int) -> None:
     trial = study.ask()
     record_start(trial, seed=0, worker=f"{socket.gethostname()}:{pid}:w0", origin=trial.number)
-    record_training(trial, {}, threads)
+    record_training(trial, {}, threads, "window-1")
 
 
 def _dead_pid() -> int:

@@ -15,8 +15,9 @@ from sweeper.tasks.copy_memory import CopyOptions, CopyTask
 from sweeper.training.elman_window import ElmanWindow
 from sweeper.training.gru_window import GRUWindow
 from sweeper.training.models import build_model
+from sweeper.training.numerics import SWITCH
 from sweeper.training.params import TrialParams
-from sweeper.training.recurrence import SWITCH, WindowGRU, WindowRNN
+from sweeper.training.recurrence import WindowGRU, WindowRNN
 from sweeper.training.trial_run import TrialRun
 
 PAIRS = {"elman": (WindowRNN, nn.RNN), "gru": (WindowGRU, nn.GRU)}

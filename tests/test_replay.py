@@ -8,18 +8,21 @@ import sqlite3
 from pathlib import Path
 
 import optuna
+import pytest
 from optuna.trial import TrialState
 
 from sweeper.seeds import trial_seed
 from sweeper.store.connect import open_storage
+from sweeper.training.numerics import LATEST, SWITCH, TORCH_MODULES
 from tests.conftest import invoke, write_tiny_spec
 
 DEMO = Path(__file__).resolve().parents[1] / "search_spaces" / "adding_lstm_demo.toml"
 
 
-def tiny_study(folder: Path, trials: int = 2) -> Path:
+def tiny_study(folder: Path, trials: int = 2, cell: str = "lstm") -> Path:
     spec = write_tiny_spec(folder, trials=trials, epochs=3, extra="")
-    spec.write_text(spec.read_text().replace("batch = 32", "batch = 32\nthreads = 1"))
+    training = f'batch = 32\nthreads = 1\ncell = "{cell}"'
+    spec.write_text(spec.read_text().replace("batch = 32", training))
     result = invoke("run", spec.name, "--report", "tiny.html")
     assert result.exit_code == 0, result.output
     return folder / "runs" / "tiny.db"
@@ -38,7 +41,8 @@ def test_a_trial_of_the_demo_study_replays_exactly(in_tmp: Path) -> None:
     lines = result.output.splitlines()
     seed = study_of(db, "adding-lstm-demo").trials[1].user_attrs["seed"]
     assert lines[0] == (
-        f"replay of trial 1 in 'adding-lstm-demo': seed {seed}, 10 epochs, 1 torch thread"
+        f"replay of trial 1 in 'adding-lstm-demo': seed {seed}, 10 epochs, 1 torch thread, "
+        f"trainer {LATEST}"
     )
     assert lines[1].split() == ["epoch", "measure", "recorded", "replayed"]
     assert lines[-1] == "agree: the replay matches the record exactly (10 epochs, 10 values each)"
@@ -151,3 +155,51 @@ def test_a_replay_that_diverges_early_still_compares_every_recorded_epoch(in_tmp
     first_valid = next(row for row in rows if row[:1] == ["valid_loss"])
     assert not math.isfinite(float(first_valid[2]))  # the replay diverged in its first epoch
     assert lines[-1].startswith("differ: 3 of 3 epochs disagree; the first is epoch 1 (")
+
+
+def _set_trainer(db: Path, number: int, revision: str | None) -> None:
+    """Rewrite (or, with None, drop) the trainer revision a trial recorded."""
+    trial = f"(SELECT trial_id FROM trials WHERE number = {number})"
+    with sqlite3.connect(db) as connection:
+        if revision is None:
+            connection.execute(
+                f"DELETE FROM trial_user_attributes WHERE key = 'trainer' AND trial_id = {trial}"
+            )
+        else:
+            connection.execute(
+                "UPDATE trial_user_attributes SET value_json = ? "
+                f"WHERE key = 'trainer' AND trial_id = {trial}",
+                (json.dumps(revision),),
+            )
+
+
+@pytest.mark.parametrize("cell", ["gru", "elman"])
+def test_a_trial_trained_before_the_revision_was_recorded_replays_exactly(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch, cell: str
+) -> None:
+    # trained through torch's nn.GRU / nn.RNN, as every trial was before our recurrence
+    monkeypatch.setenv(SWITCH, "torch")
+    db = tiny_study(in_tmp, trials=1, cell=cell)
+    monkeypatch.delenv(SWITCH)
+    assert study_of(db, "tiny").trials[0].user_attrs["trainer"] == TORCH_MODULES
+    _set_trainer(db, 0, None)  # as an older sweeper stored it: no revision
+    old = invoke("replay", str(db), "0")
+    assert old.exit_code == 0, old.output
+    assert old.output.splitlines()[0].endswith(f"trainer {TORCH_MODULES}")
+    assert old.output.splitlines()[-1].startswith("agree: the replay matches the record exactly")
+
+
+def test_a_new_trial_records_its_revision_and_replays_exactly(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp, trials=1, cell="gru")
+    assert study_of(db, "tiny").trials[0].user_attrs["trainer"] == LATEST
+    result = invoke("replay", str(db), "0")
+    assert result.exit_code == 0, result.output
+    assert result.output.splitlines()[-1].startswith("agree: the replay matches")
+
+
+def test_a_revision_this_sweeper_lacks_exits_2(in_tmp: Path) -> None:
+    db = tiny_study(in_tmp, trials=1)
+    _set_trainer(db, 0, "window-99")
+    result = invoke("replay", str(db), "0")
+    assert result.exit_code == 2
+    assert "trainer revision 'window-99', which this sweeper does not have" in result.output

@@ -276,6 +276,52 @@ def test_retry_of_a_trial_killed_after_its_last_checkpoint_records_every_epoch(
     assert retry.user_attrs["compute_seconds"] > 0
 
 
+def test_a_continuation_keeps_the_trainer_revision_of_its_checkpoint(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from optuna.storages import RetryHeartbeatStaleTrialCallback
+
+    from sweeper.spec.loading import load_spec
+    from sweeper.store import checkpoints
+    from sweeper.store.optuna_internals import fail_running, trial_id
+    from sweeper.sweep import runner
+    from sweeper.sweep.launcher import open_for_launch
+    from sweeper.sweep.study import top_up
+    from sweeper.sweep.workers import work
+    from sweeper.training.numerics import SWITCH, TORCH_MODULES
+    from tests.conftest import invoke
+
+    path = _spec(in_tmp, trials=1, epochs=2, sequences=64)
+    path.write_text(path.read_text().replace("hidden = 16", 'hidden = 16\ncell = "gru"'))
+    spec = load_spec(path)
+    study = open_for_launch(spec)
+    top_up(study, spec)
+    saved = checkpoints.save
+
+    def save_then_die(engine: object, name: str, origin: int, epoch: int, state: dict) -> None:
+        saved(engine, name, origin, epoch, state)  # type: ignore[arg-type]
+        raise _WorkerDied
+
+    # the first epoch trained through torch's nn.GRU, as by a sweeper before our recurrence
+    monkeypatch.setenv(SWITCH, "torch")
+    monkeypatch.setattr(runner.checkpoints, "save", save_then_die)
+    with pytest.raises(_WorkerDied):
+        work(spec.storage_location, "r", 0, threads=1)
+    monkeypatch.setattr(runner.checkpoints, "save", saved)
+    monkeypatch.delenv(SWITCH)
+    (dead,) = study.get_trials()
+    assert fail_running(study, trial_id(dead))
+    RetryHeartbeatStaleTrialCallback(max_retry=3)(study, study.get_trials()[0])
+
+    work(spec.storage_location, "r", 0, threads=1)  # the second epoch, by today's sweeper
+    retry = study.get_trials()[1]
+    assert retry.state == TrialState.COMPLETE and retry.user_attrs["resumed_from_epoch"] == 1
+    assert retry.user_attrs["trainer"] == TORCH_MODULES
+    replayed = invoke("replay", spec.storage_location, "1")
+    assert replayed.exit_code == 0, replayed.output
+    assert replayed.output.splitlines()[-1].startswith("agree: the replay matches the record")
+
+
 def test_a_sweeps_end_drops_checkpoints_that_dead_workers_left(
     in_tmp: Path, storage_location: str
 ) -> None:

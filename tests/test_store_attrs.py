@@ -75,13 +75,14 @@ def test_trial_writers_and_readers_agree(tmp_path: Path) -> None:
     assert claimed is not None
     trial = optuna.Trial(study, claimed)
     record_start(trial, seed=11, worker="h:1:w0", origin=trial.number)
-    record_training(trial, {"lr": 0.01}, threads=2)
+    record_training(trial, {"lr": 0.01}, threads=2, trainer="window-1")
     record_progress(trial, 3, compute_seconds=1.5)
     record_diverged(trial, "loss went to inf in epoch 3")
     record_failure(trial, StoredFailure("ValueError", "bad", "Traceback ..."))
     record_wall_seconds(trial, 2.0)  # compute recorded already: kept
     info = TrialInfo.live(trial)
     assert (info.seed, info.worker, info.threads, info.training) == (11, "h:1:w0", 2, {"lr": 0.01})
+    assert info.trainer == "window-1"
     assert (info.epochs, info.compute_seconds, info.wall_seconds) == (3, 1.5, 2.0)
     assert info.diverged and info.retry_of is None and info.origin == trial.number
     assert info.failure == StoredFailure("ValueError", "bad", "Traceback ...")

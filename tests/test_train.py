@@ -8,6 +8,7 @@ import io
 import math
 from collections.abc import Iterator
 from contextlib import contextmanager
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -18,13 +19,18 @@ from sweeper.tasks.base import Baseline, Kind, SequenceSet, Split, Task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.models import build_model
+from sweeper.training.numerics import LATEST, TORCH_MODULES
 from sweeper.training.params import CELLS, TrialParams
+from sweeper.training.recurrence import WindowGRU
 from sweeper.training.trial_run import (
     TrainingInterrupted,
     TrialRun,
     build_optimizer,
     clip_gradients,
     divergence_reason,
+    global_norm,
+    saved_revision,
+    scale_above,
     step_losses,
     weighted_mean,
 )
@@ -308,6 +314,46 @@ def test_clip_off_or_below_the_threshold_leaves_gradients_bit_identical(ratio: f
         assert np.array_equal(got, unchanged)
 
 
+def _float32_grads(seed: int) -> list[torch.Tensor]:
+    generator = torch.Generator().manual_seed(seed)
+    shapes = [(96, 16), (96, 32), (96,), (1, 32)]
+    return _with_grads([torch.randn(s, generator=generator) for s in shapes])
+
+
+@pytest.mark.parametrize("ratio", [0.0, 0.5, 1.0 - 1e-7, 1.0, 1.0 + 1e-7, 3.0])
+def test_lean_clipping_gives_clip_grad_norms_bits(ratio: float) -> None:
+    # reference: torch.nn.utils.clip_grad_norm_ on a copy, compared bit for bit, also within
+    # float32 rounding of the threshold, where torch's factor is just below or at 1
+    ours, theirs = _float32_grads(seed=2), _float32_grads(seed=2)
+    clip = ratio * float(global_norm([w.grad for w in theirs]))
+    want = torch.nn.utils.clip_grad_norm_(theirs, clip if clip > 0 else math.inf)
+    grads = [w.grad for w in ours]
+    norm = global_norm(grads)
+    scale_above(grads, norm, float(norm), clip)
+    assert torch.equal(norm, want)
+    for a, b in zip(ours, theirs, strict=True):
+        assert torch.equal(a.grad, b.grad)
+
+
+@pytest.mark.parametrize("name", ["adam", "sgd", "rmsprop"])
+def test_the_fused_optimizers_step_as_torchs_plain_ones(name: str) -> None:
+    # reference: torch's own single-tensor implementation (foreach=False) from the same state
+    params = TrialParams(optimizer=name, lr=1e-2, momentum=0.9, weight_decay=1e-3)
+    ours, theirs = _float32_grads(seed=3), _float32_grads(seed=3)
+    holder = SimpleNamespace(parameters=lambda: iter(ours))  # all build_optimizer reads
+    fast = build_optimizer(params, holder, LATEST)  # type: ignore[arg-type]
+    settings = {**fast.defaults, "foreach": False}
+    if "fused" in settings:
+        settings["fused"] = None
+    plain = type(fast)(theirs, **settings)
+    assert fast.defaults.get("fused") or fast.defaults.get("foreach")
+    for _ in range(5):
+        fast.step()
+        plain.step()
+    for a, b in zip(ours, theirs, strict=True):
+        torch.testing.assert_close(a, b, rtol=1e-6, atol=1e-7)
+
+
 @pytest.mark.parametrize("clip", [0.0, 0.02])
 def test_trial_clips_and_records_the_pre_clip_norm(clip: float) -> None:
     task = regression_task(length=8)
@@ -464,6 +510,39 @@ def test_a_state_from_other_parameters_is_refused() -> None:
     state = TrialRun(task, LIVELY, seed=5).state_dict()
     with pytest.raises(ValueError, match="other parameters or another seed"):
         TrialRun(task, LIVELY, seed=6).load_state_dict(state)
+
+
+LIVELY_GRU = dataclasses.replace(LIVELY, cell="gru")
+
+
+def revision_records(revision: str, epochs: int = 3) -> list[dict[str, object]]:
+    run = TrialRun(regression_task(n=10), LIVELY_GRU, seed=5, revision=revision)
+    assert (type(run.model.rnn) is WindowGRU) == (revision == LATEST)  # type: ignore[attr-defined]
+    for _ in range(epochs):
+        run.run_epoch()
+    return timeless(run.records)
+
+
+def test_each_revision_repeats_itself_exactly_and_they_differ() -> None:
+    old, new = revision_records(TORCH_MODULES), revision_records(LATEST)
+    assert revision_records(TORCH_MODULES) == old and revision_records(LATEST) == new
+    assert old != new  # our recurrence sums in another order: close, not bit for bit
+
+
+def test_a_state_continues_in_the_revision_it_was_trained_with() -> None:
+    task = regression_task(n=10)
+    first = TrialRun(task, LIVELY_GRU, seed=5, revision=TORCH_MODULES)
+    first.run_epoch()
+    state = first.state_dict()
+    del state["revision"]  # a checkpoint written before revisions were recorded
+    assert saved_revision(state) == TORCH_MODULES
+    with pytest.raises(ValueError, match="trainer revision 'torch-modules'"):
+        TrialRun(task, LIVELY_GRU, seed=5, revision=LATEST).load_state_dict(state)
+    resumed = TrialRun(task, LIVELY_GRU, seed=5, revision=saved_revision(state))
+    resumed.load_state_dict(state)
+    resumed.run_epoch()
+    resumed.run_epoch()
+    assert timeless(resumed.records) == revision_records(TORCH_MODULES)
 
 
 def test_trial_seeds_the_model_and_leaves_the_callers_streams_alone() -> None:

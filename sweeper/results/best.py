@@ -191,7 +191,7 @@ def refit_best(
     refit = RefitTask(task)
     epochs = _epochs(trial, spec)
     with torch_threads(sweep_threads(spec)):
-        run = TrialRun(refit, stored.params, stored.seed, build)
+        run = TrialRun(refit, stored.params, stored.seed, build, stored.revision)
         end = run_epochs(run, epochs, on_epoch=[] if on_epoch is None else [on_epoch])
     if end.how == "diverged":
         raise RunFailure(f"the final fit of trial {trial.number} {end.reason}; nothing saved")

@@ -101,7 +101,7 @@ def run_replay(
             on_epoch(comparison)
 
     with torch_threads(plan.threads):
-        run = TrialRun(task, plan.stored.params, plan.stored.seed, build)
+        run = TrialRun(task, plan.stored.params, plan.stored.seed, build, plan.stored.revision)
         # every recorded epoch is compared, even past a divergence the record does not have
         while run.epoch < len(plan.recorded):
             run_epochs(run, len(plan.recorded), on_epoch=[compare])
@@ -112,7 +112,8 @@ def header_lines(plan: ReplayPlan) -> list[str]:
     stored, plural = plan.stored, "" if plan.threads == 1 else "s"
     return [
         f"replay of trial {stored.number} in '{stored.study_name}': seed {stored.seed}, "
-        f"{len(plan.recorded)} epochs, {plan.threads} torch thread{plural}",
+        f"{len(plan.recorded)} epochs, {plan.threads} torch thread{plural}, "
+        f"trainer {stored.revision}",
         f"{'epoch':>5}  {'measure':<16} {'recorded':<24} replayed",
     ]
 

@@ -20,6 +20,7 @@ from sweeper.sweep.workers import default_threads
 from sweeper.tasks.base import Task
 from sweeper.training.model_plugin import section_model_builder
 from sweeper.training.models import ModelBuilder
+from sweeper.training.numerics import REVISIONS, TORCH_MODULES
 from sweeper.training.params import TrialParams
 
 
@@ -31,6 +32,7 @@ class StoredTrial:
     trial: FrozenTrial
     params: TrialParams
     seed: int
+    revision: str  # the trainer's numerics revision it trained with
 
     @property
     def number(self) -> int:
@@ -64,7 +66,15 @@ def stored_trial(study: optuna.Study, spec: Spec, trial: FrozenTrial) -> StoredT
     if seed is None:
         origin = trial.number if info.retry_of is None else info.retry_of
         seed = trial_seed(spec.study.seed, origin)
-    return StoredTrial(study.study_name, trial, TrialParams.from_mapping(training), seed)
+    revision = info.trainer or TORCH_MODULES  # recorded since the trainer had two
+    if revision not in REVISIONS:
+        raise InputError(
+            f"trial {trial.number} of '{study.study_name}' was trained with trainer revision "
+            f"{revision!r}, which this sweeper does not have; retrain it with the sweeper "
+            "version that ran the study"
+        )
+    params = TrialParams.from_mapping(training)
+    return StoredTrial(study.study_name, trial, params, seed, revision)
 
 
 def training_setup(spec: Spec) -> tuple[Task, ModelBuilder]:

@@ -31,6 +31,8 @@ functions; read through ``TrialInfo``):
 ``worker``              ``host:pid:wN`` of the worker that ran it
 ``threads``             torch threads it trained with (replay needs the same count)
 ``training``            every training parameter (``TrialParams.as_dict``)
+``trainer``             the trainer's numerics revision it trained with (training/numerics.py);
+                        absent: torch's own nn.RNN / nn.GRU, as before it was recorded
 ``epochs``              epochs recorded so far
 ``score_epoch``         the epoch the trial's score comes from (its best epoch, or its last for
                         the other scores): what ``best --retrain`` trains for
@@ -284,6 +286,12 @@ class TrialInfo:
         return dict(raw) if isinstance(raw, Mapping) else None
 
     @property
+    def trainer(self) -> str | None:
+        """The numerics revision it trained with; ``None`` when it recorded none."""
+        value = self.user.get("trainer")
+        return value if isinstance(value, str) else None
+
+    @property
     def epochs(self) -> int | None:
         return _int(self.user.get("epochs"))
 
@@ -404,9 +412,13 @@ def record_draw(trial: optuna.Trial, stream: int, redraws: int) -> None:
     trial.set_user_attr("draw", {"stream": stream, "redraws": redraws})
 
 
-def record_training(trial: optuna.Trial, training: Mapping[str, Any], threads: int) -> None:
+def record_training(
+    trial: optuna.Trial, training: Mapping[str, Any], threads: int, trainer: str
+) -> None:
+    """What replay needs: the parameters, the thread count and the numerics revision."""
     trial.set_user_attr("training", dict(training))
     trial.set_user_attr("threads", threads)
+    trial.set_user_attr("trainer", trainer)
 
 
 def record_resumed(trial: optuna.Trial, epoch: int) -> None:

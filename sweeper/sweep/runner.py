@@ -25,9 +25,10 @@ from sweeper.tasks.base import Task
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.model_plugin import section_model_builder
+from sweeper.training.numerics import current_revision
 from sweeper.training.params import TrialParams
 from sweeper.training.score import Score, score_curve
-from sweeper.training.trial_run import TrialRun
+from sweeper.training.trial_run import TrialRun, saved_revision
 
 Objective = Callable[[dict[str, Any], Callable[[int, float], None]], float]
 TRACEBACK_LINES = 12
@@ -102,13 +103,8 @@ def _draw_distinct(trial: optuna.Trial, spec: Spec) -> dict[str, Any]:
     return params
 
 
-def _continue_from_checkpoint(
-    trial: optuna.Trial, ctx: TrialContext, run: TrialRun, origin: int
-) -> None:
+def _continue_from(trial: optuna.Trial, ctx: TrialContext, run: TrialRun, state: Any) -> None:
     """Load the origin trial's latest state and replay its recorded epochs into this trial."""
-    state = checkpoints.load(ctx.engine, ctx.study_name, origin)
-    if state is None:
-        return
     run.load_state_dict(state)
     for record in run.records:
         epoch_rows.write_epoch(ctx.engine, ctx.study_name, trial.number, record)
@@ -167,10 +163,14 @@ def _run_training(
 ) -> float:
     assert ctx.task is not None, "a training trial needs its task"
     training = TrialParams.from_mapping({**ctx.spec.training.defaults, **params})
-    attrs.record_training(trial, training.as_dict(), torch.get_num_threads())  # for replay
+    # a continuation keeps the numerics its origin's checkpoint was trained with
+    state = checkpoints.load(ctx.engine, ctx.study_name, origin)
+    revision = current_revision() if state is None else saved_revision(state)
+    attrs.record_training(trial, training.as_dict(), torch.get_num_threads(), revision)
     build = section_model_builder(ctx.spec.task, ctx.spec.base_dir, ctx.spec.source)
-    run = TrialRun(ctx.task, training, seed, build)
-    _continue_from_checkpoint(trial, ctx, run, origin)
+    run = TrialRun(ctx.task, training, seed, build, revision)
+    if state is not None:
+        _continue_from(trial, ctx, run, state)
     reporter = EpochReporter(trial, ctx, run, origin)
     end = run_epochs(
         run,

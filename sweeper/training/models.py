@@ -13,8 +13,9 @@ from typing import Any, Protocol
 import torch
 from torch import nn
 
+from sweeper.training.numerics import own_recurrence
 from sweeper.training.params import TrialParams
-from sweeper.training.recurrence import WindowGRU, WindowRNN, torch_recurrence_chosen
+from sweeper.training.recurrence import WindowGRU, WindowRNN
 
 # LSTM carries (h, c); the other cells carry h alone. Each is [layers, batch, hidden].
 State = torch.Tensor | tuple[torch.Tensor, torch.Tensor]
@@ -62,7 +63,8 @@ class SequenceModel(nn.Module):
         self.cell = cell
         self.hidden = hidden
         self.layers = layers
-        # Elman and GRU run our window recurrence (training/recurrence.py), LSTM oneDNN's kernel.
+        # Elman and GRU run our window recurrence (training/recurrence.py) unless the trial's
+        # revision predates it (training/numerics.py); LSTM runs oneDNN's kernel.
         # torch applies its own dropout only between layers and warns when there is just one.
         between = dropout if layers > 1 else 0.0
         self.rnn = _recurrent(cell, input_size, hidden, layers, between)
@@ -99,7 +101,7 @@ def _recurrent(cell: str, input_size: int, hidden: int, layers: int, dropout: fl
         "dropout": dropout,
         "batch_first": True,
     }
-    own = not torch_recurrence_chosen()
+    own = own_recurrence()  # the revision of the trial being built
     if cell == "elman":
         return (WindowRNN if own else nn.RNN)(nonlinearity="tanh", **common)
     if cell == "gru":

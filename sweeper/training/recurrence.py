@@ -9,13 +9,12 @@ bidirectional, no state) goes to torch's forward, and so does a GRU forward that
 gradient (evaluation, windows without targets): there torch's C++ step loop is quicker than
 our Python one, while for Elman ours is.
 
-``SWEEPER_RECURRENCE=torch`` in the environment makes the built-in models use torch's
-modules instead; the benchmarks use it to time the old path against the new.
+Which of the two the built-in models use follows the trial's numerics revision
+(training/numerics.py).
 """
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
 
 import torch
@@ -24,14 +23,8 @@ from torch import nn
 from sweeper.training.elman_window import ElmanWindow
 from sweeper.training.gru_window import GRUWindow
 
-SWITCH = "SWEEPER_RECURRENCE"
 # one layer's parameters, nn.RNNBase's names (suffixed _l0, _l1, ...)
 _NAMES = ("weight_ih", "weight_hh", "bias_ih", "bias_hh")
-
-
-def torch_recurrence_chosen() -> bool:
-    """True when the environment asks for torch's own nn.RNN / nn.GRU (benchmarks only)."""
-    return os.environ.get(SWITCH, "") == "torch"
 
 
 def handled(module: nn.RNNBase, x: torch.Tensor) -> bool:

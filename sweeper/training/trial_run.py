@@ -26,6 +26,7 @@ from sweeper.seeds import derive_seed
 from sweeper.tasks.base import Kind, SequenceSet, Task
 from sweeper.training.epoch_record import EpochRecord, summarize_norms
 from sweeper.training.models import ModelBuilder, Recurrent, State, build_model
+from sweeper.training.numerics import TORCH_MODULES, building, current_revision, numerics
 from sweeper.training.params import TrialParams
 
 STATE_FORMAT = 1
@@ -66,14 +67,44 @@ def clip_gradients(parameters: Sequence[torch.Tensor], clip: float) -> torch.Ten
     return torch.nn.utils.clip_grad_norm_(parameters, clip if clip > 0 else math.inf)
 
 
-def build_optimizer(params: TrialParams, model: Recurrent) -> torch.optim.Optimizer:
+def global_norm(grads: Sequence[torch.Tensor]) -> torch.Tensor:
+    """The global L2 norm of ``grads``, with the same operations (so the same bits) as
+    ``torch.nn.utils.clip_grad_norm_``'s foreach path on CPU."""
+    if not grads:
+        return torch.zeros(())
+    return torch.linalg.vector_norm(torch.stack(torch._foreach_norm(list(grads))))
+
+
+def scale_above(
+    grads: Sequence[torch.Tensor], norm: torch.Tensor, value: float, clip: float
+) -> None:
+    """Pascanu et al.'s step as ``clip_grad_norm_`` computes it (factor clip / (norm + 1e-6),
+    at most 1) given the norm and its value, but only where the factor can be below 1: below
+    the threshold torch multiplies by exactly 1.0, which changes no bit. The 1e-6 margin
+    covers float32 rounding of the factor."""
+    if clip <= 0 or not math.isfinite(value) or value + 1e-6 < clip * (1 - 1e-6):
+        return
+    torch._foreach_mul_(list(grads), torch.clamp(clip / (norm + 1e-6), max=1.0))
+
+
+def build_optimizer(
+    params: TrialParams, model: Recurrent, revision: str | None = None
+) -> torch.optim.Optimizer:
+    """The trial's optimizer; from revision window-1 on with torch's fused (or foreach)
+    kernels, a few calls a step instead of a dozen small ones per parameter tensor."""
     weights = list(model.parameters())
     lr, decay = params.lr, params.weight_decay
+    lean = numerics(current_revision() if revision is None else revision).lean_step
+    fused = True if lean else None  # None: torch's default, as before window-1
     if params.optimizer == "sgd":
-        return torch.optim.SGD(weights, lr=lr, momentum=params.momentum, weight_decay=decay)
-    if params.optimizer == "rmsprop":
-        return torch.optim.RMSprop(weights, lr=lr, momentum=params.momentum, weight_decay=decay)
-    return torch.optim.Adam(weights, lr=lr, weight_decay=decay)
+        return torch.optim.SGD(
+            weights, lr=lr, momentum=params.momentum, weight_decay=decay, fused=fused
+        )
+    if params.optimizer == "rmsprop":  # torch has no fused RMSprop
+        return torch.optim.RMSprop(
+            weights, lr=lr, momentum=params.momentum, weight_decay=decay, foreach=fused
+        )
+    return torch.optim.Adam(weights, lr=lr, weight_decay=decay, fused=fused)
 
 
 def divergence_reason(record: EpochRecord) -> str | None:
@@ -114,14 +145,25 @@ class _Tally:
 
 
 class TrialRun:
-    """One trial, an epoch at a time (``run_epochs`` drives it); ``state_dict()`` between."""
+    """One trial, an epoch at a time (``run_epochs`` drives it); ``state_dict()`` between.
+
+    ``revision`` (training/numerics.py) picks the code paths; a replay or a continuation
+    passes the one the trial recorded, a new trial the current one.
+    """
 
     def __init__(
-        self, task: Task, params: TrialParams, seed: int, build: ModelBuilder = build_model
+        self,
+        task: Task,
+        params: TrialParams,
+        seed: int,
+        build: ModelBuilder = build_model,
+        revision: str | None = None,
     ) -> None:
         self.task = task
         self.params = params
         self.seed = seed
+        self.revision = current_revision() if revision is None else revision
+        self.numerics = numerics(self.revision)
         self._train = _contiguous(task.data("train"))
         self._valid = _contiguous(task.data("valid"))
         length = self._train.inputs.shape[1]
@@ -139,8 +181,9 @@ class TrialRun:
         np.random.seed(seed)
         torch.manual_seed(seed)
         try:
-            self.model: Recurrent = build(params, task.input_size, task.output_size)
-            self.optimizer = build_optimizer(params, self.model)
+            with building(self.revision):
+                self.model: Recurrent = build(params, task.input_size, task.output_size)
+            self.optimizer = build_optimizer(params, self.model, self.revision)
             self._rng = _global_rng()
         finally:
             _set_global_rng(outside)
@@ -235,14 +278,24 @@ class TrialRun:
             # backward
             self.optimizer.zero_grad(set_to_none=True)
             loss.backward()
-            # clip, keeping the pre-clip norm
-            norm = clip_gradients(self._parameters, clip)
-            # record: one read-back per step for both numbers
-            loss_value, norm_value = torch.stack((loss.detach(), norm)).tolist()
+            # clip, keeping the pre-clip norm; record: one read-back per step for both numbers
+            loss_value, norm_value = self._clip_and_read(loss, clip)
             tally.add(loss_value, norm_value, total)
             # step, unless the loss or the gradient is not finite
             if math.isfinite(loss_value) and math.isfinite(norm_value):
                 self.optimizer.step()
+
+    def _clip_and_read(self, loss: torch.Tensor, clip: float) -> tuple[float, float]:
+        """Clip the gradients; the loss and the pre-clip global norm as numbers."""
+        if not self.numerics.lean_step:
+            norm = clip_gradients(self._parameters, clip)
+            loss_value, norm_value = torch.stack((loss.detach(), norm)).tolist()
+            return loss_value, norm_value
+        grads = [p.grad for p in self._parameters if p.grad is not None]
+        norm = global_norm(grads)
+        loss_value, norm_value = torch.stack((loss.detach(), norm)).tolist()
+        scale_above(grads, norm, norm_value, clip)
+        return loss_value, norm_value
 
     def _evaluate(self) -> tuple[float, float]:
         """Whole validation sequences at once, dropout off, no truncation."""
@@ -265,6 +318,7 @@ class TrialRun:
             "format": STATE_FORMAT,
             "params": self.params.as_dict(),
             "seed": self.seed,
+            "revision": self.revision,
             "epoch": self._epoch,
             "records": [record.as_dict() for record in self._records],
             "model": copy.deepcopy(self.model.state_dict()),
@@ -280,6 +334,11 @@ class TrialRun:
             raise ValueError(f"unknown trial state format {state.get('format')!r}")
         if state["params"] != self.params.as_dict() or state["seed"] != self.seed:
             raise ValueError("the saved trial state belongs to other parameters or another seed")
+        if saved_revision(state) != self.revision:
+            raise ValueError(
+                f"the saved trial state was trained with trainer revision "
+                f"{saved_revision(state)!r}, this run with {self.revision!r}"
+            )
         self.model.load_state_dict(state["model"])
         self.optimizer.load_state_dict(state["optimizer"])
         self._epoch = int(state["epoch"])
@@ -304,6 +363,11 @@ class TrialRun:
             self._rng = _global_rng()
         finally:
             _set_global_rng(outside)
+
+
+def saved_revision(state: dict[str, Any]) -> str:
+    """The revision a saved trial state was trained with (older states: torch's modules)."""
+    return str(state.get("revision", TORCH_MODULES))
 
 
 def _contiguous(data: SequenceSet) -> SequenceSet:
