@@ -228,7 +228,7 @@ def test_second_ctrl_c_stops_at_once_and_resume_recovers(tmp_path: Path) -> None
     assert sum(t.state == TrialState.COMPLETE for t in trials) == 2
     _finished_once(trials)
     status = proc.run(tmp_path, "status", "runs/r.db")
-    assert "retries" in status.stdout  # which trial retried which
+    assert "retried trials" in status.stdout and "in place of trial" in status.stdout
 
 
 class _WorkerDied(BaseException):

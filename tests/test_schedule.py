@@ -117,6 +117,9 @@ unroll = 4
 
 [search]
 lr = { between = [0.001, 0.1], scale = "log" }
+
+[confirm]
+configurations = 0  # the searched trials only: confirmation is never stopped early
 """
 
 
