@@ -67,3 +67,5 @@ def test_the_page_leads_with_the_stored_confirmed_choice(in_tmp: Path) -> None:
     assert re.search(r'class="big">[0-9.e-]+ ± [0-9.e-]+<', head)
     assert f"trial #{stored['trial']}" in head
     assert "Confirmed: the mean of 3 training runs with different seeds." in head
+    # the budget counts the searched trials only: 6, not 6 + 2 x 2 confirmation trials
+    assert "6 of a budget of 6 settled (failures and confirmation trials do not count)" in head

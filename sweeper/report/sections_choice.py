@@ -219,8 +219,10 @@ def _trials_text(tables: StudyTables) -> str:
     budget = tables.summary.budget
     text = f"Chosen from {len(tables.trials)} trials ({', '.join(parts)})"
     if budget:
-        settled = sum(1 for t in tables.trials if t.state in ("COMPLETE", "PRUNED"))
-        text += f"; {settled} of a budget of {budget} settled (failures do not count)"
+        searched = [t for t in tables.trials if t.confirms is None]
+        settled = sum(1 for t in searched if t.state in ("COMPLETE", "PRUNED"))
+        text += f"; {settled} of a budget of {budget} settled (failures and confirmation "
+        text += "trials do not count)"
     return text + "."
 
 
