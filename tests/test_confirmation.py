@@ -184,3 +184,14 @@ def test_a_higher_is_better_study_confirms_its_highest_configurations() -> None:
     assert [(p.searched, p.round) for p in plan(trials, spec)] == [
         (1, 1), (1, 2), (1, 3), (3, 1), (3, 2), (3, 3)
     ]  # fmt: skip
+
+
+@pytest.mark.parametrize(
+    ("tied", "words"), [((3,), "from trial 3:"), ((3, 13), "from trials 3, 13:")]
+)
+def test_the_choice_names_the_trials_it_cannot_be_told_apart_from(tied, words) -> None:
+    from sweeper.results.choice import Choice
+
+    choice = Choice(11, {}, 0.13, 0.05, 0.027, 4, True, tied, (), 0, "valid_loss")
+    (line,) = [text for text in choice.lines() if text.startswith("cannot be told apart")]
+    assert words in line

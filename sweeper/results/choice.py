@@ -114,8 +114,9 @@ class Choice:
         lines = [head]
         if self.tied_with:
             others = ", ".join(str(n) for n in self.tied_with)
+            trials = "trial" if len(self.tied_with) == 1 else "trials"
             lines.append(
-                f"cannot be told apart from trial {others}: the gap is under "
+                f"cannot be told apart from {trials} {others}: the gap is under "
                 f"{SEPARATION:g} standard errors of the difference; any of them is as good"
             )
         elif len(self.candidates) > 1:
