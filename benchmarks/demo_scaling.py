@@ -33,12 +33,14 @@ TARGET = 0.6  # 2-worker wall time over 1-worker wall time
 
 
 def demo_spec(folder: Path, threads: int, quick: bool) -> Path:
-    """A copy of the demo spec: the thread count fixed, smaller when quick."""
+    """A copy of the demo spec: the thread count fixed, no confirmation, smaller when quick."""
     text = DEMO.read_text(encoding="utf-8")
     if threads:
         text = text.replace("[training]\n", f"[training]\nthreads = {threads}\n", 1)
     if quick:
         text = text.replace("trials = 16", "trials = 4").replace("epochs = 10", "epochs = 2")
+    # the queued searched trials only: confirmation would queue trials of its own
+    text += "\n[confirm]\nconfigurations = 0\n"
     path = folder / "demo.toml"
     path.write_text(text, encoding="utf-8")
     return path
