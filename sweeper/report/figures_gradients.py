@@ -20,6 +20,7 @@ from sweeper.report.theme import (
     Drawn,
     Missing,
     axis,
+    clipping_off_at,
     hover,
     layout,
     numbers,
@@ -56,7 +57,7 @@ def norm_clip_figure(rows: Sequence[TrialGradients]) -> Drawn:
     if not usable:
         return Missing("No trial recorded a finite pre-clip gradient norm.")
     thresholds = [r.clip for r in usable if r.clip > 0]
-    off_x = min(thresholds) / 4 if thresholds else 1.0
+    off_x = clipping_off_at(thresholds)
     rng = np.random.default_rng(0)
     template = (
         "trial #%{customdata[0]}: clip %{customdata[1]}<br>"

@@ -18,6 +18,7 @@ from sweeper.report.theme import (
     Drawn,
     Missing,
     axis,
+    clipping_off_at,
     hover,
     layout,
     numbers,
@@ -44,7 +45,7 @@ def stability_figure(rows: Sequence[TrialGradients]) -> Drawn:
     if not usable:
         return Missing("No settled trial recorded both a learning rate and a clip threshold.")
     thresholds = [r.clip for r in usable if r.clip > 0]
-    off_y = min(thresholds) / 4 if thresholds else 1.0
+    off_y = clipping_off_at(thresholds)
     rng = np.random.default_rng(0)
     template = (
         "trial #%{customdata[0]}: %{meta}<br>lr %{customdata[1]:.3g}, clip %{customdata[2]:.3g}"

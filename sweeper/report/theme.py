@@ -157,3 +157,9 @@ def hover(template: str) -> dict[str, Any]:
 def numbers(values: Any) -> np.ndarray:
     """Floats as an array, which plotly stores in binary form (None becomes NaN, a gap)."""
     return np.array([math.nan if v is None else v for v in values], dtype=np.float64)
+
+
+def clipping_off_at(thresholds: list[float]) -> float:
+    """Where a trial without clipping (threshold 0) sits on a log clip axis: a quarter of the
+    smallest threshold searched, or 1 when no trial clipped."""
+    return min(thresholds) / 4 if thresholds else 1.0
