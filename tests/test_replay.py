@@ -13,7 +13,14 @@ from optuna.trial import TrialState
 
 from sweeper.seeds import trial_seed
 from sweeper.store.connect import open_storage
-from sweeper.training.numerics import LATEST, SWITCH, TORCH_MODULES
+from sweeper.training import compiled_steps
+from sweeper.training.numerics import (
+    COMPILED,
+    SWITCH,
+    TORCH_MODULES,
+    WINDOW,
+    current_revision,
+)
 from tests.conftest import invoke, write_tiny_spec
 
 DEMO = Path(__file__).resolve().parents[1] / "search_spaces" / "adding_lstm_demo.toml"
@@ -42,7 +49,7 @@ def test_a_trial_of_the_demo_study_replays_exactly(in_tmp: Path) -> None:
     seed = study_of(db, "adding-lstm-demo").trials[1].user_attrs["seed"]
     assert lines[0] == (
         f"replay of trial 1 in 'adding-lstm-demo': seed {seed}, 10 epochs, 1 torch thread, "
-        f"trainer {LATEST}"
+        f"trainer {current_revision()}"
     )
     assert lines[1].split() == ["epoch", "measure", "recorded", "replayed"]
     assert lines[-1] == "agree: the replay matches the record exactly (10 epochs, 10 values each)"
@@ -189,12 +196,34 @@ def test_a_trial_trained_before_the_revision_was_recorded_replays_exactly(
     assert old.output.splitlines()[-1].startswith("agree: the replay matches the record exactly")
 
 
-def test_a_new_trial_records_its_revision_and_replays_exactly(in_tmp: Path) -> None:
+@pytest.mark.parametrize("asked", ["", WINDOW])
+def test_a_new_trial_records_its_revision_and_replays_exactly(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch, asked: str
+) -> None:
+    # the latest revision this machine runs (window-2 with a compiler), and window-1 when asked
+    if asked:
+        monkeypatch.setenv(SWITCH, asked)
     db = tiny_study(in_tmp, trials=1, cell="gru")
-    assert study_of(db, "tiny").trials[0].user_attrs["trainer"] == LATEST
+    monkeypatch.delenv(SWITCH, raising=False)
+    assert study_of(db, "tiny").trials[0].user_attrs["trainer"] == (asked or current_revision())
     result = invoke("replay", str(db), "0")
     assert result.exit_code == 0, result.output
     assert result.output.splitlines()[-1].startswith("agree: the replay matches")
+
+
+def test_a_compiled_trial_where_nothing_can_build_the_kernels_exits_2(
+    in_tmp: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    db = tiny_study(in_tmp, trials=1, cell="gru")
+    _set_trainer(db, 0, COMPILED)
+    monkeypatch.setattr(compiled_steps, "_load", lambda: (None, "no C++ compiler (test)"))
+    result = invoke("replay", str(db), "0")
+    assert result.exit_code == 2
+    assert result.output.strip().splitlines()[-1] == (
+        "error: trial 0 of 'tiny': trainer revision window-2 needs the compiled step loops, "
+        "which this machine cannot build (no C++ compiler (test)); install a C++ compiler "
+        "(g++ or clang++, or set CXX) to build them"
+    )
 
 
 def test_a_revision_this_sweeper_lacks_exits_2(in_tmp: Path) -> None:

@@ -16,10 +16,11 @@ import torch
 import torch.nn.functional as F
 
 from sweeper.tasks.base import Baseline, Kind, SequenceSet, Split, Task
+from sweeper.training import compiled_steps
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.models import build_model
-from sweeper.training.numerics import LATEST, TORCH_MODULES
+from sweeper.training.numerics import COMPILED, LATEST, TORCH_MODULES, WINDOW, numerics
 from sweeper.training.params import CELLS, TrialParams
 from sweeper.training.recurrence import WindowGRU
 from sweeper.training.trial_run import (
@@ -517,16 +518,23 @@ LIVELY_GRU = dataclasses.replace(LIVELY, cell="gru")
 
 def revision_records(revision: str, epochs: int = 3) -> list[dict[str, object]]:
     run = TrialRun(regression_task(n=10), LIVELY_GRU, seed=5, revision=revision)
-    assert (type(run.model.rnn) is WindowGRU) == (revision == LATEST)  # type: ignore[attr-defined]
+    rnn = run.model.rnn  # type: ignore[attr-defined]
+    assert (type(rnn) is WindowGRU) == (revision != TORCH_MODULES)
+    assert getattr(rnn, "compiled", False) == numerics(revision).compiled_steps
     for _ in range(epochs):
         run.run_epoch()
     return timeless(run.records)
 
 
 def test_each_revision_repeats_itself_exactly_and_they_differ() -> None:
-    old, new = revision_records(TORCH_MODULES), revision_records(LATEST)
-    assert revision_records(TORCH_MODULES) == old and revision_records(LATEST) == new
-    assert old != new  # our recurrence sums in another order: close, not bit for bit
+    revisions = [TORCH_MODULES, WINDOW]
+    if compiled_steps.loaded() is not None:
+        revisions.append(COMPILED)
+    first = [revision_records(revision) for revision in revisions]
+    assert [revision_records(revision) for revision in revisions] == first
+    # each sums in another order (our recurrence; the compiled loops' own exp and tanh):
+    # close, not bit for bit
+    assert all(a != b for i, a in enumerate(first) for b in first[i + 1 :])
 
 
 def test_a_state_continues_in_the_revision_it_was_trained_with() -> None:

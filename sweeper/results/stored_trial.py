@@ -20,7 +20,12 @@ from sweeper.sweep.workers import default_threads
 from sweeper.tasks.base import Task
 from sweeper.training.model_plugin import section_model_builder
 from sweeper.training.models import ModelBuilder
-from sweeper.training.numerics import REVISIONS, TORCH_MODULES
+from sweeper.training.numerics import (
+    REVISIONS,
+    TORCH_MODULES,
+    RevisionUnavailable,
+    check_runnable,
+)
 from sweeper.training.params import TrialParams
 
 
@@ -73,6 +78,13 @@ def stored_trial(study: optuna.Study, spec: Spec, trial: FrozenTrial) -> StoredT
             f"{revision!r}, which this sweeper does not have; retrain it with the sweeper "
             "version that ran the study"
         )
+    try:
+        check_runnable(revision)
+    except RevisionUnavailable as error:
+        raise InputError(
+            f"trial {trial.number} of '{study.study_name}': {error}; install a C++ compiler "
+            "(g++ or clang++, or set CXX) to build them"
+        ) from None
     params = TrialParams.from_mapping(training)
     return StoredTrial(study.study_name, trial, params, seed, revision)
 

@@ -13,6 +13,10 @@ z together, then n) and four in-place gate operations, nothing recorded. The bac
 precomputes every factor that does not depend on the incoming gradient for the whole window,
 so a reverse step is one product and two elementwise operations; the weight gradients are one
 product each over the window.
+
+With the compiled kernels (``kernels``, training/compiled_steps.py) both step loops are
+step_kernels.cpp's: a step is one product and one fused loop each way; the window-wide
+products and the weight gradients stay the same torch products.
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ from typing import Any
 import torch
 from torch.autograd.function import once_differentiable
 
+from sweeper.training.compiled_steps import Kernels
 from sweeper.training.window_grads import input_grads, recurrent_grads
 
 Tensor = torch.Tensor
@@ -32,13 +37,8 @@ def gru_steps(
 ) -> tuple[Tensor, ...]:
     """Outputs, last state, gates [T, B, 3H] (r, z, n after their nonlinearities) and n's
     recurrent products ``h W_hn^T + b_hn`` [T, B, H], every step's, for the backward."""
-    steps, batch, features = x.shape
-    hidden = h0.shape[-1]
-    # input products of every step at once, r's and z's recurrent biases folded in; they
-    # become the gates in place below
-    bias = b_ih + torch.cat((b_hh[: 2 * hidden], b_hh.new_zeros(hidden)))
-    gates = torch.addmm(bias, x.reshape(steps * batch, features), w_ih.t())
-    gates = gates.view(steps, batch, 3 * hidden)
+    gates = _input_products(x, w_ih, b_ih, b_hh)
+    steps, batch, hidden = gates.shape[0], gates.shape[1], h0.shape[-1]
     products = gates.new_empty(steps, batch, hidden)
     out = gates.new_empty(steps, batch, hidden)
     w_rz, w_n = w_hh[: 2 * hidden].t(), w_hh[2 * hidden :].t()
@@ -55,14 +55,56 @@ def gru_steps(
     return out, h, gates, products
 
 
+def _input_products(x: Tensor, w_ih: Tensor, b_ih: Tensor, b_hh: Tensor) -> Tensor:
+    """Every step's input products at once [T, B, 3H], r's and z's recurrent biases folded
+    in; the step loops turn them into the gates in place."""
+    steps, batch, features = x.shape
+    hidden = w_ih.shape[0] // 3
+    bias = b_ih + torch.cat((b_hh[: 2 * hidden], b_hh.new_zeros(hidden)))
+    gates = torch.addmm(bias, x.reshape(steps * batch, features), w_ih.t())
+    return gates.view(steps, batch, 3 * hidden)
+
+
+def compiled_steps(
+    kernels: Kernels, x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
+) -> tuple[Tensor, ...]:
+    """``gru_steps`` through step_kernels.cpp (h0 and w_hh contiguous)."""
+    gates = _input_products(x, w_ih, b_ih, b_hh)
+    steps, batch, hidden = gates.shape[0], gates.shape[1], h0.shape[-1]
+    products = gates.new_empty(steps, batch, hidden)
+    out = gates.new_empty(steps, batch, hidden)
+    scratch = gates.new_empty(batch, 3 * hidden)
+    b_n = b_hh[2 * hidden :].contiguous()
+    sizes = (steps, batch, hidden)
+    kernels.call("gru_forward", sizes, gates, h0, w_hh, b_n, products, out, scratch)
+    return out, out[-1], gates, products
+
+
+def _usable(kernels: Kernels | None, *tensors: Tensor) -> Kernels | None:
+    return kernels if kernels is not None and kernels.supports(*tensors) else None
+
+
 class GRUWindow(torch.autograd.Function):
-    """``apply(x, h0, w_ih, w_hh, b_ih, b_hh) -> (outputs, last state)``."""
+    """``apply(x, h0, w_ih, w_hh, b_ih, b_hh, kernels=None) -> (outputs, last state)``;
+    ``kernels``: the compiled step loops, or None for the Python ones."""
 
     @staticmethod
     def forward(
-        ctx: Any, x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
+        ctx: Any,
+        x: Tensor,
+        h0: Tensor,
+        w_ih: Tensor,
+        w_hh: Tensor,
+        b_ih: Tensor,
+        b_hh: Tensor,
+        kernels: Kernels | None = None,
     ) -> tuple[Tensor, Tensor]:
-        out, h, gates, products = gru_steps(x, h0, w_ih, w_hh, b_ih, b_hh)
+        h0, w_hh = h0.contiguous(), w_hh.contiguous()
+        ctx.kernels = _usable(kernels, x, h0, w_ih, w_hh, b_ih, b_hh)
+        if ctx.kernels is not None:
+            out, h, gates, products = compiled_steps(ctx.kernels, x, h0, w_ih, w_hh, b_ih, b_hh)
+        else:
+            out, h, gates, products = gru_steps(x, h0, w_ih, w_hh, b_ih, b_hh)
         ctx.save_for_backward(x, h0, w_ih, w_hh, gates, products, out)
         return out, h.clone()
 
@@ -70,6 +112,8 @@ class GRUWindow(torch.autograd.Function):
     @once_differentiable
     def backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
         x, h0, w_ih, w_hh, gates, products, out = ctx.saved_tensors
+        if ctx.kernels is not None:
+            return _compiled_backward(ctx, d_out, d_last)
         steps, batch, hidden = out.shape
         z = gates[..., hidden : 2 * hidden]
         factors, to_n = _factors(gates, products, h0, out)
@@ -91,7 +135,26 @@ class GRUWindow(torch.autograd.Function):
         # the input products' gradients: the recurrent ones, but n's is not scaled by r
         torch.mul(d_h, to_n, out=d_rec[..., 2 * hidden :])
         d_x, d_w_ih, d_b_ih = input_grads(need, x, d_rec, w_ih)
-        return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh
+        return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh, None
+
+
+def _compiled_backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
+    """The backward through step_kernels.cpp's reverse loop; the same weight products."""
+    x, h0, w_ih, w_hh, gates, products, out = ctx.saved_tensors
+    steps, batch, hidden = out.shape
+    d_h = torch.add(d_out, 0, out=torch.empty_like(out))  # time-first, contiguous
+    d_h[-1].add_(d_last)
+    d_rec, carry = torch.empty_like(gates), torch.empty_like(h0)
+    ctx.kernels.call(
+        "gru_backward", (steps, batch, hidden), gates, products, h0, out, w_hh, d_h, d_rec, carry
+    )
+    need = ctx.needs_input_grad
+    d_w_hh, d_b_hh = recurrent_grads(need, h0, out, d_rec)
+    # the input products' gradients: the recurrent ones, but n's is not scaled by r (the
+    # loop left n's pre-activation gradient in d_h)
+    d_rec[..., 2 * hidden :].copy_(d_h)
+    d_x, d_w_ih, d_b_ih = input_grads(need, x, d_rec, w_ih)
+    return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh, None
 
 
 def _factors(gates: Tensor, products: Tensor, h0: Tensor, out: Tensor) -> tuple[Tensor, Tensor]:

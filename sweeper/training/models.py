@@ -13,7 +13,7 @@ from typing import Any, Protocol
 import torch
 from torch import nn
 
-from sweeper.training.numerics import own_recurrence
+from sweeper.training.numerics import building_numerics
 from sweeper.training.params import TrialParams
 from sweeper.training.recurrence import WindowGRU, WindowRNN
 
@@ -101,11 +101,14 @@ def _recurrent(cell: str, input_size: int, hidden: int, layers: int, dropout: fl
         "dropout": dropout,
         "batch_first": True,
     }
-    own = own_recurrence()  # the revision of the trial being built
+    chosen = building_numerics()  # the revision of the trial being built
+    own, compiled = chosen.own_recurrence, chosen.compiled_steps
     if cell == "elman":
-        return (WindowRNN if own else nn.RNN)(nonlinearity="tanh", **common)
+        kind = WindowRNN if own else nn.RNN
+        extra = {"compiled": compiled} if own else {}
+        return kind(nonlinearity="tanh", **common, **extra)
     if cell == "gru":
-        return (WindowGRU if own else nn.GRU)(**common)
+        return WindowGRU(compiled=compiled, **common) if own else nn.GRU(**common)
     if cell == "lstm":
         return nn.LSTM(**common)
     raise ValueError(f"cell must be one of elman, gru, lstm, got {cell!r}")

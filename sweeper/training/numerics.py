@@ -6,8 +6,10 @@ its revision (a ``trainer`` trial attribute, a ``revision`` key in its checkpoin
 or checkpoint without one predates the record and was trained through torch's own
 nn.RNN / nn.GRU.
 
-``SWEEPER_RECURRENCE=torch`` in the environment makes new trials use torch's modules (the
-oldest revision); the benchmarks use it to time the old path against the new.
+``SWEEPER_RECURRENCE`` in the environment picks the revision of new trials by name (``torch``
+for torch-modules, ``window-1``); the benchmarks use it to time the old paths against the new.
+Without it a new trial takes the latest revision this machine can run: window-2 needs the
+compiled step loops (training/compiled_steps.py), window-1 where they cannot be built.
 """
 
 from __future__ import annotations
@@ -18,10 +20,13 @@ from contextlib import contextmanager
 from contextvars import ContextVar
 from dataclasses import dataclass
 
+from sweeper.training import compiled_steps
+
 SWITCH = "SWEEPER_RECURRENCE"
 TORCH_MODULES = "torch-modules"  # what a trial without a recorded revision was trained with
 WINDOW = "window-1"
-LATEST = WINDOW
+COMPILED = "window-2"
+LATEST = COMPILED
 
 
 @dataclass(frozen=True)
@@ -32,11 +37,13 @@ class Numerics:
     # fused optimizer kernels (Adam's round differently), clipping that scales only above the
     # threshold; torch-modules keeps the trainer's older code for these as well
     lean_step: bool
+    compiled_steps: bool = False  # the step loops of our recurrence in step_kernels.cpp
 
 
 REVISIONS = {
     TORCH_MODULES: Numerics(own_recurrence=False, lean_step=False),
     WINDOW: Numerics(own_recurrence=True, lean_step=True),
+    COMPILED: Numerics(own_recurrence=True, lean_step=True, compiled_steps=True),
 }
 
 
@@ -56,9 +63,33 @@ def numerics(revision: str) -> Numerics:
         raise UnknownRevision(revision) from None
 
 
+class RevisionUnavailable(RuntimeError):
+    """A revision whose code this machine cannot run (window-2 without its compiled loops)."""
+
+    def __init__(self, revision: str, why: str) -> None:
+        self.revision, self.why = revision, why
+        super().__init__(
+            f"trainer revision {revision} needs the compiled step loops, which this machine "
+            f"cannot build ({why})"
+        )
+
+
 def current_revision() -> str:
-    """The revision a new trial trains with: the latest, or torch's modules when asked."""
-    return TORCH_MODULES if os.environ.get(SWITCH, "") == "torch" else LATEST
+    """The revision a new trial trains with: the one asked for in the environment, else the
+    latest this machine can run."""
+    asked = os.environ.get(SWITCH, "")
+    if asked == "torch":
+        return TORCH_MODULES
+    if asked:
+        numerics(asked)
+        return asked
+    return COMPILED if compiled_steps.loaded() is not None else WINDOW
+
+
+def check_runnable(revision: str) -> None:
+    """Raise RevisionUnavailable unless this machine can run ``revision``'s code."""
+    if numerics(revision).compiled_steps and compiled_steps.loaded() is None:
+        raise RevisionUnavailable(revision, compiled_steps.why_not())
 
 
 # the revision models are being built for (TrialRun sets it); unset: current_revision()
@@ -68,7 +99,7 @@ _building: ContextVar[str | None] = ContextVar("sweeper_building_revision", defa
 @contextmanager
 def building(revision: str) -> Iterator[None]:
     """Build models for ``revision`` inside this block (this thread or task only)."""
-    numerics(revision)
+    check_runnable(revision)
     token = _building.set(revision)
     try:
         yield
@@ -76,6 +107,6 @@ def building(revision: str) -> Iterator[None]:
         _building.reset(token)
 
 
-def own_recurrence() -> bool:
-    """Whether a built-in Elman or GRU built now runs our window recurrence."""
-    return numerics(_building.get() or current_revision()).own_recurrence
+def building_numerics() -> Numerics:
+    """The numerics of the models built now (the trial's revision, else a new trial's)."""
+    return numerics(_building.get() or current_revision())
