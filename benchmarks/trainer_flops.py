@@ -15,13 +15,14 @@ denominator is torch.mm of two 2048 x 2048 float32 matrices on one thread, measu
 before each epoch. "bare" is the same model and windows trained by a plain loop (forward,
 loss, backward, Adam; no clipping, no records), to tell trainer costs from torch's.
 
-Elman and GRU run twice per round, in alternating order: with the current trainer revision
-(our window recurrence, sweeper/training/recurrence.py, with fused optimizer kernels and lean
-clipping, training/numerics.py) and with the oldest one, the trainer as it was before
-(``SWEEPER_RECURRENCE=torch``: torch's own nn.RNN / nn.GRU, torch's default optimizer loop,
-clip_grad_norm_); "ours / torch" is the median of the per-round rate ratios and
-``slowest_vs_torch`` its smallest value over those cells and widths. LSTM runs torch's nn.LSTM
-(oneDNN) in both, so it is measured once, with the current revision.
+Elman and GRU run three times per round, in rotating order: with the latest trainer revision
+this machine runs (window-2: our window recurrence with its step loops compiled,
+sweeper/training/step_kernels.cpp, fused optimizer kernels and lean clipping;
+training/numerics.py), with window-1 (the same with the step loops in Python), and with the
+oldest one, the trainer as it was before (``SWEEPER_RECURRENCE=torch``: torch's own nn.RNN /
+nn.GRU, torch's default optimizer loop, clip_grad_norm_); "ours / torch" is the median of the
+per-round rate ratios and ``slowest_vs_torch`` its smallest value over those cells and widths.
+LSTM runs torch's nn.LSTM (oneDNN) in all, so it is measured once, with the latest revision.
 
 Two more figures, each from child processes so that the two paths do not share a heap:
 - the sweep: search_spaces/copy_gru.toml with the random sampler (its draws do not depend on
@@ -68,14 +69,18 @@ SWEEP_TARGET, MEMORY_TARGET = 0.6, 1.0
 
 @contextmanager
 def recurrence(path: str) -> Iterator[None]:
-    """Models built inside use our recurrence ("ours") or torch's modules ("torch")."""
+    """Trials begun inside take the latest revision ("ours"), window-1 ("window-1") or torch's
+    modules ("torch")."""
     before = os.environ.get(SWITCH)
-    os.environ[SWITCH] = path
+    if path == "ours":
+        os.environ.pop(SWITCH, None)
+    else:
+        os.environ[SWITCH] = path
     try:
         yield
     finally:
         if before is None:
-            del os.environ[SWITCH]
+            os.environ.pop(SWITCH, None)
         else:
             os.environ[SWITCH] = before
 
@@ -155,24 +160,26 @@ def measure(cell: str, hidden: int, batch: int, work: float, rounds: int) -> dic
     sequences = max(4 * batch, round(work / per_sequence / batch) * batch)
     params = TrialParams(cell=cell, hidden=hidden, unroll=UNROLL, batch=batch, lr=1e-3)
     task = SyntheticTask(sequences)
-    paths = ("ours", "torch") if cell in OURS else ("ours",)
+    paths = ("ours", "window-1", "torch") if cell in OURS else ("ours",)
     runs = {}
     for path in paths:
         with recurrence(path):
             runs[path] = TrialRun(task, params, seed=1)
         runs[path].run_epoch()  # warm-up: first-use allocations and kernel choices
     shares: dict[str, list[float]] = {path: [] for path in paths}
-    bare_shares, rates, gains = [], [], []
+    bare_shares, rates, gains, over_python = [], [], [], []
     for number in range(rounds):
         peak = sgemm_rate()
         rate = {}
-        for path in paths if number % 2 == 0 else paths[::-1]:
+        turn = number % len(paths)
+        for path in paths[turn:] + paths[:turn]:
             rate[path] = runs[path].run_epoch().sequences_per_second * per_sequence / 1e9
             shares[path].append(rate[path] / peak)
         bare = sequences * per_sequence / bare_epoch_seconds(runs["ours"], batch) / 1e9
         bare_shares.append(bare / peak)
         rates.append(rate["ours"])
         gains.append(rate["ours"] / rate.get("torch", rate["ours"]))
+        over_python.append(rate["ours"] / rate.get("window-1", rate["ours"]))
     torch_share = median(shares["torch"]) if "torch" in shares else float("nan")
     return {
         "gflops": median(rates),
@@ -180,6 +187,7 @@ def measure(cell: str, hidden: int, batch: int, work: float, rounds: int) -> dic
         "torch_share": torch_share,
         "gain": median(gains) if "torch" in shares else float("nan"),
         "bare": median(bare_shares),
+        "over_python": median(over_python) if "window-1" in shares else float("nan"),
     }
 
 
@@ -292,7 +300,16 @@ def main(argv: list[str] | None = None) -> int:
                 got = measure(cell, hidden, args.batch, work, rounds)
                 share, bare = got["share"], got["bare"]
                 rows.append(
-                    (cell, hidden, got["gflops"], share, got["torch_share"], got["gain"], bare)
+                    (
+                        cell,
+                        hidden,
+                        got["gflops"],
+                        share,
+                        got["torch_share"],
+                        got["gain"],
+                        bare,
+                        got["over_python"],
+                    )
                 )
         peak = sgemm_rate()
     finally:
@@ -314,7 +331,7 @@ def report(rows: list[tuple], peak: float, batch: int) -> list[str]:
         f"sgemm 2048x2048 on one thread: {peak:.1f} GFLOP/s (at the end; shares use each round's)"
     )
     headers = ("cell", "hidden", "trainer GFLOP/s", "share of sgemm", "torch's share")
-    headers += ("ours / torch", "bare loop share", "trainer / bare")
+    headers += ("ours / torch", "bare loop share", "compiled / python loops", "trainer / bare")
     print_table(headers, [(*row, row[3] / row[6]) for row in rows])
     figures = []
     for cell, hidden, _, share, torch_share, *_ in rows:

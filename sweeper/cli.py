@@ -51,6 +51,9 @@ def check(specs: tuple[str, ...]) -> None:
 
     for path in specs:
         click.echo(describe_spec(load_spec(path)))
+    from sweeper.training.numerics import trainer_line  # loads torch: after the specs' checks
+
+    click.echo(trainer_line())
 
 
 @main.command()

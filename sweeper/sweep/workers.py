@@ -58,6 +58,7 @@ from sweeper.sweep.study import (
     tally,
     work_left,
 )
+from sweeper.training import compiled_steps
 from sweeper.training.trial_run import TrainingInterrupted
 
 IDLE_POLL_SECONDS = 0.1  # a poll takes about 1.5 ms; the last trial's end is seen sooner
@@ -83,8 +84,10 @@ def load_trial_machinery() -> None:
 
     torch loads torch._dynamo (about 1 s) when it builds its first optimizer, and optuna loads
     alembic (about 0.3 s) when it opens its first storage; throwaway ones pay for that here
-    rather than inside the first trial's time.
+    rather than inside the first trial's time. The compiled step loops are built (once per
+    machine) or loaded here too, so forked workers inherit them.
     """
+    compiled_steps.loaded()
     with collector_paused():
         torch.optim.Adam([torch.zeros(1, requires_grad=True)])
         optuna.storages.RDBStorage("sqlite://").engine.dispose()  # in memory: nothing to share

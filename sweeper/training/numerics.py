@@ -86,6 +86,19 @@ def current_revision() -> str:
     return COMPILED if compiled_steps.loaded() is not None else WINDOW
 
 
+def trainer_line() -> str:
+    """What new trials on this machine train with, for ``sweeper check``."""
+    revision = current_revision()
+    if revision == COMPILED:
+        return f"trainer: revision {revision} (Elman and GRU steps compiled on this machine)"
+    if revision == WINDOW and not os.environ.get(SWITCH):
+        return (
+            f"trainer: revision {revision} (Python step loops; the compiled ones are not "
+            f"available here: {compiled_steps.why_not()})"
+        )
+    return f"trainer: revision {revision} (asked for by {SWITCH})"
+
+
 def check_runnable(revision: str) -> None:
     """Raise RevisionUnavailable unless this machine can run ``revision``'s code."""
     if numerics(revision).compiled_steps and compiled_steps.loaded() is None:
