@@ -220,7 +220,8 @@ def test_a_compiled_trial_where_nothing_can_build_the_kernels_exits_2(
     result = invoke("replay", str(db), "0")
     assert result.exit_code == 2
     assert result.output.strip().splitlines()[-1] == (
-        "error: trial 0 of 'tiny': trainer revision window-2 needs the compiled step loops, "
+        "sweeper: error: trial 0 of 'tiny': trainer revision window-2 needs the compiled "
+        "step loops, "
         "which this machine cannot build (no C++ compiler (test)); install a C++ compiler "
         "(g++ or clang++, or set CXX) to build them"
     )
