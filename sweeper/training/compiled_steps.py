@@ -29,12 +29,13 @@ import torch
 SOURCE = Path(__file__).with_name("step_kernels.cpp")
 FLAGS = ("-O3", "-march=native", "-fPIC", "-shared", "-fno-math-errno")
 Tensor = torch.Tensor
-_POINTER, _INT = ctypes.c_void_p, ctypes.c_int
-_SIGNATURES = {  # the extern "C" functions of step_kernels.cpp: ints first, then pointers
-    "gru_forward": (3, 7),
-    "gru_backward": (3, 8),
-    "elman_forward": (3, 3),
-    "elman_backward": (3, 4),
+_POINTER, _INT, _LONG = ctypes.c_void_p, ctypes.c_int, ctypes.c_long
+_SIZES, _STRIDES = [_INT] * 4, [_LONG] * 2  # steps, batch, hidden, features; d_out's strides
+_SIGNATURES = {  # the extern "C" functions of step_kernels.cpp: numbers, then buffers
+    "gru_forward": _SIZES + [_POINTER] * 11,
+    "gru_backward": _SIZES + _STRIDES + [_POINTER] * 16,
+    "elman_forward": _SIZES + [_POINTER] * 8,
+    "elman_backward": _SIZES + _STRIDES + [_POINTER] * 13,
 }
 _SUFFIX = {torch.float32: "f32", torch.float64: "f64"}
 
@@ -44,10 +45,10 @@ class Kernels:
 
     def __init__(self, library: ctypes.CDLL) -> None:
         self._library = library
-        for name, (ints, pointers) in _SIGNATURES.items():
+        for name, argtypes in _SIGNATURES.items():
             for suffix in _SUFFIX.values():
                 function = getattr(library, f"sweeper_{name}_{suffix}")
-                function.argtypes = [_INT] * ints + [_POINTER] * pointers
+                function.argtypes = argtypes
                 function.restype = None
         activation = library.sweeper_activation_f32
         activation.argtypes = [ctypes.c_ssize_t, _POINTER, _POINTER, _INT]
@@ -60,11 +61,18 @@ class Kernels:
             t.dtype == first.dtype and t.device.type == "cpu" for t in tensors
         )
 
-    def call(self, name: str, sizes: tuple[int, ...], *tensors: Tensor) -> None:
-        if not all(t.is_contiguous() for t in tensors):
-            raise ValueError(f"{name}: the kernels read every tensor as contiguous")
-        function = getattr(self._library, f"sweeper_{name}_{_SUFFIX[tensors[0].dtype]}")
-        function(*sizes, *(t.data_ptr() for t in tensors))
+    def call(
+        self, name: str, numbers: tuple[int, ...], *tensors: Tensor | None, strided: int = -1
+    ) -> None:
+        """``numbers`` (sizes, then strides) and the buffers; None passes a null pointer. Every
+        buffer is contiguous, but ``tensors[strided]``, read through the strides in
+        ``numbers``, needs only unit stride in its last dimension."""
+        given = [t for t in tensors if t is not None]
+        for index, t in enumerate(tensors):
+            if t is not None and not (t.stride(-1) == 1 if index == strided else t.is_contiguous()):
+                raise ValueError(f"{name}: the kernels read every tensor as contiguous")
+        function = getattr(self._library, f"sweeper_{name}_{_SUFFIX[given[0].dtype]}")
+        function(*numbers, *(None if t is None else t.data_ptr() for t in tensors))
 
     def activation(self, x: Tensor, which: str) -> Tensor:
         """exp, tanh or sigmoid of a float32 tensor by the kernels' own formulas (tests)."""

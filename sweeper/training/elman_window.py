@@ -5,8 +5,8 @@ nn.RNN's own: ``h_t = tanh(x_t W_ih^T + b_ih + h_{t-1} W_hh^T + b_hh)`` (torch d
 window's input products are one matrix product; a step is one product and one tanh, written
 in place into the output, so nothing is recorded per step. The backward runs the steps in
 reverse for the pre-activation gradients, then forms each weight's gradient with one product
-over the whole window. With the compiled kernels (``kernels``, training/compiled_steps.py) the
-two step loops are step_kernels.cpp's, the window-wide products the same.
+over the whole window. With the compiled kernels (``kernels``, training/compiled_steps.py)
+each direction is one call of step_kernels.cpp, the same products and steps inside it.
 """
 
 from __future__ import annotations
@@ -37,35 +37,29 @@ class ElmanWindow(torch.autograd.Function):
         b_hh: Tensor,
         kernels: Kernels | None = None,
     ) -> tuple[Tensor, Tensor]:
-        steps, batch, features = x.shape
         h0, w_hh = h0.contiguous(), w_hh.contiguous()
-        # input products of every step at once, both biases folded in
-        out = torch.addmm(b_ih + b_hh, x.reshape(steps * batch, features), w_ih.t())
-        out = out.view(steps, batch, -1)
         usable = kernels is not None and kernels.supports(x, h0, w_ih, w_hh, b_ih, b_hh)
         ctx.kernels = kernels if usable else None
         if ctx.kernels is not None:
-            ctx.kernels.call("elman_forward", (steps, batch, out.shape[-1]), h0, w_hh, out)
-            h = out[-1]
-        else:
-            recurrent = w_hh.t()
-            h = h0
-            for step in out.unbind(0):
-                h = step.addmm_(h, recurrent).tanh_()
+            return _compiled_forward(ctx, x, h0, w_ih, w_hh, b_ih, b_hh)
+        steps, batch, features = x.shape
+        # input products of every step at once, both biases folded in
+        out = torch.addmm(b_ih + b_hh, x.reshape(steps * batch, features), w_ih.t())
+        out = out.view(steps, batch, -1)
+        recurrent = w_hh.t()
+        h = h0
+        for step in out.unbind(0):
+            h = step.addmm_(h, recurrent).tanh_()
         ctx.save_for_backward(x, h0, w_ih, w_hh, out)
         return out, h.clone()
 
     @staticmethod
     @once_differentiable
     def backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
-        x, h0, _, w_hh, out = ctx.saved_tensors
-        steps = x.shape[0]
         if ctx.kernels is not None:
-            d_pre = torch.add(d_out, 0, out=torch.empty_like(out))  # time-first, contiguous
-            d_pre[-1].add_(d_last)
-            carry = torch.empty_like(h0)
-            ctx.kernels.call("elman_backward", tuple(out.shape), out, w_hh, d_pre, carry)
-            return _weight_grads(ctx, d_pre, carry)
+            return _compiled_backward(ctx, d_out, d_last)
+        x, h0, w_ih, w_hh, out = ctx.saved_tensors
+        steps = x.shape[0]
         # tanh' = 1 - h^2 for the whole window; the output gradients enter scaled by it at once
         slope = torch.mul(out, out).neg_().add_(1)
         d_pre = torch.mul(d_out, slope, out=torch.empty_like(out))  # time-first, contiguous
@@ -76,13 +70,45 @@ class ElmanWindow(torch.autograd.Function):
             steps_back[t - 1].addcmul_(torch.mm(steps_back[t], w_hh), slopes[t - 1])
         del slope, slopes
         carry = torch.mm(steps_back[0], w_hh)
-        return _weight_grads(ctx, d_pre, carry)
+        need = ctx.needs_input_grad
+        d_w_hh, d_b_hh = recurrent_grads(need, h0, out, d_pre)
+        d_x, d_w_ih, d_b_ih = input_grads(need, x, d_pre, w_ih)
+        return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh, None
 
 
-def _weight_grads(ctx: Any, d_pre: Tensor, carry: Tensor) -> tuple[Tensor | None, ...]:
-    """Every input's gradient from the window's pre-activation gradients ``d_pre``."""
-    x, h0, w_ih, _, out = ctx.saved_tensors
+def _compiled_forward(
+    ctx: Any, x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
+) -> tuple[Tensor, Tensor]:
+    """The window through step_kernels.cpp: one call, every product and step inside."""
+    steps, batch, features = x.shape
+    hidden = w_hh.shape[1]
+    flat = x.reshape(steps * batch, features).contiguous()
+    w_ih = w_ih.contiguous()
+    states = flat.new_empty(steps + 1, batch, hidden)  # h0, then every step's state
+    last = flat.new_empty(batch, hidden)
+    sizes = (steps, batch, hidden, features)
+    ctx.kernels.call("elman_forward", sizes, flat, w_ih, b_ih, w_hh, b_hh, h0, states, last)
+    ctx.save_for_backward(flat, w_ih, w_hh, states)
+    return states[1:], last
+
+
+def _compiled_backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
+    flat, w_ih, w_hh, states = ctx.saved_tensors
+    steps, batch, hidden = d_out.shape
+    features = flat.shape[1]
+    if d_out.stride(-1) != 1:
+        d_out = d_out.contiguous()
     need = ctx.needs_input_grad
-    d_w_hh, d_b_hh = recurrent_grads(need, h0, out, d_pre)
-    d_x, d_w_ih, d_b_ih = input_grads(need, x, d_pre, w_ih)
-    return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh, None
+    d_x = flat.new_empty(flat.shape) if need[0] else None
+    grads = [torch.empty_like(w) for w in (w_ih, w_hh)]
+    biases = [flat.new_empty(hidden) for _ in range(2)]
+    carry = flat.new_empty(batch, hidden)
+    numbers = (steps, batch, hidden, features, d_out.stride(0), d_out.stride(1))
+    d_pre = flat.new_empty(steps, batch, hidden)
+    buffers: tuple[Tensor | None, ...] = (flat, w_ih, w_hh, states, d_out, d_last.contiguous())
+    buffers += (d_pre, d_x)
+    buffers += (grads[0], biases[0], grads[1], biases[1], carry)
+    ctx.kernels.call("elman_backward", numbers, *buffers, strided=4)
+    d_x = d_x.view(steps, batch, features) if d_x is not None else None
+    wanted = (d_x, carry, grads[0], grads[1], biases[0], biases[1])
+    return (*(g if want else None for g, want in zip(wanted, need, strict=False)), None)

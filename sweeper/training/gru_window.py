@@ -14,9 +14,8 @@ precomputes every factor that does not depend on the incoming gradient for the w
 so a reverse step is one product and two elementwise operations; the weight gradients are one
 product each over the window.
 
-With the compiled kernels (``kernels``, training/compiled_steps.py) both step loops are
-step_kernels.cpp's: a step is one product and one fused loop each way; the window-wide
-products and the weight gradients stay the same torch products.
+With the compiled kernels (``kernels``, training/compiled_steps.py) each direction is one call
+of step_kernels.cpp: the same products inside, a step one product and one fused loop each way.
 """
 
 from __future__ import annotations
@@ -65,21 +64,6 @@ def _input_products(x: Tensor, w_ih: Tensor, b_ih: Tensor, b_hh: Tensor) -> Tens
     return gates.view(steps, batch, 3 * hidden)
 
 
-def compiled_steps(
-    kernels: Kernels, x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
-) -> tuple[Tensor, ...]:
-    """``gru_steps`` through step_kernels.cpp (h0 and w_hh contiguous)."""
-    gates = _input_products(x, w_ih, b_ih, b_hh)
-    steps, batch, hidden = gates.shape[0], gates.shape[1], h0.shape[-1]
-    products = gates.new_empty(steps, batch, hidden)
-    out = gates.new_empty(steps, batch, hidden)
-    scratch = gates.new_empty(batch, 3 * hidden)
-    b_n = b_hh[2 * hidden :].contiguous()
-    sizes = (steps, batch, hidden)
-    kernels.call("gru_forward", sizes, gates, h0, w_hh, b_n, products, out, scratch)
-    return out, out[-1], gates, products
-
-
 def _usable(kernels: Kernels | None, *tensors: Tensor) -> Kernels | None:
     return kernels if kernels is not None and kernels.supports(*tensors) else None
 
@@ -102,18 +86,17 @@ class GRUWindow(torch.autograd.Function):
         h0, w_hh = h0.contiguous(), w_hh.contiguous()
         ctx.kernels = _usable(kernels, x, h0, w_ih, w_hh, b_ih, b_hh)
         if ctx.kernels is not None:
-            out, h, gates, products = compiled_steps(ctx.kernels, x, h0, w_ih, w_hh, b_ih, b_hh)
-        else:
-            out, h, gates, products = gru_steps(x, h0, w_ih, w_hh, b_ih, b_hh)
+            return _compiled_forward(ctx, x, h0, w_ih, w_hh, b_ih, b_hh)
+        out, h, gates, products = gru_steps(x, h0, w_ih, w_hh, b_ih, b_hh)
         ctx.save_for_backward(x, h0, w_ih, w_hh, gates, products, out)
         return out, h.clone()
 
     @staticmethod
     @once_differentiable
     def backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
-        x, h0, w_ih, w_hh, gates, products, out = ctx.saved_tensors
         if ctx.kernels is not None:
             return _compiled_backward(ctx, d_out, d_last)
+        x, h0, w_ih, w_hh, gates, products, out = ctx.saved_tensors
         steps, batch, hidden = out.shape
         z = gates[..., hidden : 2 * hidden]
         factors, to_n = _factors(gates, products, h0, out)
@@ -138,23 +121,44 @@ class GRUWindow(torch.autograd.Function):
         return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh, None
 
 
+def _compiled_forward(
+    ctx: Any, x: Tensor, h0: Tensor, w_ih: Tensor, w_hh: Tensor, b_ih: Tensor, b_hh: Tensor
+) -> tuple[Tensor, Tensor]:
+    """The window through step_kernels.cpp: one call, every product and step inside."""
+    steps, batch, features = x.shape
+    hidden = w_hh.shape[1]
+    flat = x.reshape(steps * batch, features).contiguous()
+    w_ih = w_ih.contiguous()
+    gates = flat.new_empty(steps, batch, 3 * hidden)
+    products = flat.new_empty(steps, batch, hidden)
+    states = flat.new_empty(steps + 1, batch, hidden)  # h0, then every step's state
+    last, scratch = flat.new_empty(batch, hidden), flat.new_empty(batch, 3 * hidden)
+    buffers = (flat, w_ih, b_ih, w_hh, b_hh, h0, gates, products, states, last, scratch)
+    ctx.kernels.call("gru_forward", (steps, batch, hidden, features), *buffers)
+    ctx.save_for_backward(flat, w_ih, w_hh, gates, products, states)
+    return states[1:], last
+
+
 def _compiled_backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
-    """The backward through step_kernels.cpp's reverse loop; the same weight products."""
-    x, h0, w_ih, w_hh, gates, products, out = ctx.saved_tensors
-    steps, batch, hidden = out.shape
-    d_h = torch.add(d_out, 0, out=torch.empty_like(out))  # time-first, contiguous
-    d_h[-1].add_(d_last)
-    d_rec, carry = torch.empty_like(gates), torch.empty_like(h0)
-    ctx.kernels.call(
-        "gru_backward", (steps, batch, hidden), gates, products, h0, out, w_hh, d_h, d_rec, carry
-    )
+    flat, w_ih, w_hh, gates, products, states = ctx.saved_tensors
+    steps, batch, hidden = d_out.shape
+    features = flat.shape[1]
+    if d_out.stride(-1) != 1:
+        d_out = d_out.contiguous()
     need = ctx.needs_input_grad
-    d_w_hh, d_b_hh = recurrent_grads(need, h0, out, d_rec)
-    # the input products' gradients: the recurrent ones, but n's is not scaled by r (the
-    # loop left n's pre-activation gradient in d_h)
-    d_rec[..., 2 * hidden :].copy_(d_h)
-    d_x, d_w_ih, d_b_ih = input_grads(need, x, d_rec, w_ih)
-    return d_x, carry if need[1] else None, d_w_ih, d_w_hh, d_b_ih, d_b_hh, None
+    d_x = flat.new_empty(flat.shape) if need[0] else None
+    grads = [torch.empty_like(w) for w in (w_ih, w_hh)]
+    biases = [flat.new_empty(3 * hidden) for _ in range(2)]
+    carry = flat.new_empty(batch, hidden)
+    d_h, d_rec = flat.new_empty(steps, batch, hidden), torch.empty_like(gates)
+    numbers = (steps, batch, hidden, features, d_out.stride(0), d_out.stride(1))
+    buffers: tuple[Tensor | None, ...] = (flat, w_ih, w_hh, gates, products, states, d_out)
+    buffers += (d_last.contiguous(), d_h)
+    buffers += (d_rec, d_x, grads[0], biases[0], grads[1], biases[1], carry)
+    ctx.kernels.call("gru_backward", numbers, *buffers, strided=6)
+    d_x = d_x.view(steps, batch, features) if d_x is not None else None
+    wanted = (d_x, carry, grads[0], grads[1], biases[0], biases[1])
+    return (*(g if want else None for g, want in zip(wanted, need, strict=False)), None)
 
 
 def _factors(gates: Tensor, products: Tensor, h0: Tensor, out: Tensor) -> tuple[Tensor, Tensor]:

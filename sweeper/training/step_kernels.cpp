@@ -1,11 +1,12 @@
-// The step loops of one recurrent layer over a window, compiled (training/compiled_steps.py
-// builds and loads this file; gru_window.py and elman_window.py call it).
+// One recurrent layer over a window, forward and backward, compiled (training/compiled_steps.py
+// builds and loads this file; gru_window.py and elman_window.py call it once each way).
 //
-// Row-major, time-first buffers as the Python side lays them out: gates [T, B, 3H], states and
-// outputs [T, B, H], weights as nn.GRU / nn.RNN store them (W_hh [G*H, H]). The matrix
-// products go to the BLAS sgemm_ / dgemm_ that torch itself links (their addresses are handed
-// in once by sweeper_set_gemm); everything between two products is one fused loop, so a GRU
-// step is one product and one loop forward, one loop and one product backward.
+// Row-major, time-first buffers as the Python side lays them out: inputs x [T*B, F], gates
+// [T, B, 3H], states [T+1, B, H] (h0, then every step's h), weights as nn.GRU / nn.RNN store
+// them (W_ih [G*H, F], W_hh [G*H, H]). The matrix products go to the BLAS sgemm_ / dgemm_ that
+// torch itself links (their addresses are handed in once by sweeper_set_gemm): the window's
+// input products in one product, per step one recurrent product and one fused loop each way,
+// and each weight's gradient in one product over the window.
 //
 // Only the C library is used, so the file compiles in about a second without torch's headers.
 
@@ -143,37 +144,103 @@ inline void gru_gate_grads(std::ptrdiff_t hidden, bool first, const T* __restric
     }
 }
 
-// GRU (nn.GRU's equations and gate order r, z, n). In: gates[t] holds x_t W_ih^T + b_ih with
-// b_hr, b_hz added; out: r, z, n after their nonlinearities, products[t] = h W_hn^T + b_hn,
-// out[t] = h_t. rec is scratch [B, 3H].
+// Column sums of a row-major [rows, cols] matrix into out[cols] (a bias's gradient).
 template <typename T>
-void gru_forward(int steps, int batch, int hidden, T* gates, const T* h0, const T* w_hh,
-                 const T* b_hn, T* products, T* out, T* rec) {
+void column_sums(std::ptrdiff_t rows, std::ptrdiff_t cols, const T* m, T* __restrict__ out) {
+    for (std::ptrdiff_t j = 0; j < cols; ++j) out[j] = T(0);
+    for (std::ptrdiff_t r = 0; r < rows; ++r) {
+        const T* __restrict__ row = m + r * cols;
+        for (std::ptrdiff_t j = 0; j < cols; ++j) out[j] += row[j];
+    }
+}
+
+// The input products of a whole window, x [T*B, F] times W_ih^T [F, G*H], plus a bias row.
+template <typename T>
+void input_products(std::ptrdiff_t rows, int cols, int features, const T* x, const T* w_ih,
+                    const T* bias_a, const T* bias_b, int bias_b_cols, T* out) {
+    times_transposed(int(rows), cols, features, x, w_ih, out, T(0));
+    for (std::ptrdiff_t r = 0; r < rows; ++r) {
+        T* __restrict__ row = out + r * cols;
+        for (int j = 0; j < bias_b_cols; ++j) row[j] += bias_a[j] + bias_b[j];
+        for (int j = bias_b_cols; j < cols; ++j) row[j] += bias_a[j];
+    }
+}
+
+// d_h[t, b] = d_out[t, b] (strided: the output's gradient may be a transposed view), and the
+// last state's gradient added to the last step.
+template <typename T>
+void gather_output_grads(int steps, int batch, int hidden, const T* d_out, long stride_t,
+                         long stride_b, const T* d_last, T* d_h) {
+    for (int t = 0; t < steps; ++t)
+        for (int b = 0; b < batch; ++b) {
+            const T* __restrict__ from = d_out + t * stride_t + b * stride_b;
+            T* __restrict__ to = d_h + (std::ptrdiff_t(t) * batch + b) * hidden;
+            for (int j = 0; j < hidden; ++j) to[j] = from[j];
+        }
+    T* __restrict__ last = d_h + std::ptrdiff_t(steps - 1) * batch * hidden;
+    for (std::ptrdiff_t i = 0; i < std::ptrdiff_t(batch) * hidden; ++i) last[i] += d_last[i];
+}
+
+// A layer's recurrent weight gradients from its recurrent products' gradients d_rec
+// [T*B, G*H] and the states the steps started from (states[0 .. T-1], [T*B, H]): row-major
+// d_w_hh = d_rec^T states, one product (column-major: d_w_hh^T = states^T d_rec).
+template <typename T>
+void recurrent_weight_grads(std::ptrdiff_t rows, int gates_hidden, int hidden, const T* d_rec,
+                            const T* states, T* d_w_hh, T* d_b_hh) {
+    gemm('N', 'T', hidden, gates_hidden, int(rows), T(0), states, hidden, d_rec, gates_hidden,
+         d_w_hh, hidden);
+    column_sums(rows, gates_hidden, d_rec, d_b_hh);
+}
+
+// The input weights' and inputs' gradients from the input products' gradients d_in
+// [T*B, G*H] and the inputs x [T*B, F]; d_x may be null (inputs that need none).
+template <typename T>
+void input_weight_grads(std::ptrdiff_t rows, int gates_hidden, int features, const T* d_in,
+                        const T* x, const T* w_ih, T* d_x, T* d_w_ih, T* d_b_ih) {
+    gemm('N', 'T', features, gates_hidden, int(rows), T(0), x, features, d_in, gates_hidden,
+         d_w_ih, features);
+    column_sums(rows, gates_hidden, d_in, d_b_ih);
+    if (d_x) times(int(rows), features, gates_hidden, d_in, w_ih, d_x, T(0));
+}
+
+// GRU (nn.GRU's equations and gate order r, z, n) over a window. x [T*B, F]; out: gates
+// [T, B, 3H] (r, z, n after their nonlinearities), products [T, B, H] (h W_hn^T + b_hn),
+// states [T+1, B, H] (h0, then every step's h), last [B, H]; rec is scratch [B, 3H].
+template <typename T>
+void gru_forward(int steps, int batch, int hidden, int features, const T* x, const T* w_ih,
+                 const T* b_ih, const T* w_hh, const T* b_hh, const T* h0, T* gates,
+                 T* products, T* states, T* last, T* rec) {
     const std::ptrdiff_t g3 = 3 * hidden, bh = std::ptrdiff_t(batch) * hidden, bg3 = batch * g3;
-    const T* h = h0;
+    input_products(steps * std::ptrdiff_t(batch), 3 * hidden, features, x, w_ih, b_ih, b_hh,
+                   2 * hidden, gates);
+    std::memcpy(states, h0, sizeof(T) * bh);
+    const T* b_hn = b_hh + 2 * hidden;
     for (int t = 0; t < steps; ++t) {
+        const T* h = states + t * bh;
+        T* out = states + (t + 1) * bh;
         times_transposed(batch, 3 * hidden, hidden, h, w_hh, rec, T(0));
         for (int b = 0; b < batch; ++b) {
             T* g = gates + t * bg3 + b * g3;
             const T* rc = rec + b * g3;
             gru_gates(hidden, g, g + hidden, g + 2 * hidden, rc, rc + hidden, rc + 2 * hidden,
-                      b_hn, h + b * hidden, products + t * bh + b * hidden,
-                      out + t * bh + b * hidden);
+                      b_hn, h + b * hidden, products + t * bh + b * hidden, out + b * hidden);
         }
-        h = out + t * bh;
     }
+    std::memcpy(last, states + steps * bh, sizeof(T) * bh);
 }
 
-// GRU backward through the window. d_h[t] holds d out[t] (d_last already added to the last
-// step); the loop completes it one step ahead of its use and then overwrites it with the
-// gradient of n's pre-activation. d_rec[t] gets the gradients of the recurrent products
-// (r, z pre-activations; n's product, which r scales). carry = d h0.
+// GRU backward through the window: the reverse steps (d_h, scratch [T, B, H], is each step's
+// whole state gradient, then n's pre-activation gradient; d_rec [T, B, 3H] the recurrent
+// products' gradients), then every weight's gradient; d_x may be null; carry = d h0.
 template <typename T>
-void gru_backward(int steps, int batch, int hidden, const T* gates, const T* products,
-                  const T* h0, const T* out, const T* w_hh, T* d_h, T* d_rec, T* carry) {
+void gru_backward(int steps, int batch, int hidden, int features, const T* x, const T* w_ih,
+                  const T* w_hh, const T* gates, const T* products, const T* states,
+                  const T* d_out, long stride_t, long stride_b, const T* d_last, T* d_h,
+                  T* d_rec, T* d_x, T* d_w_ih, T* d_b_ih, T* d_w_hh, T* d_b_hh, T* carry) {
     const std::ptrdiff_t g3 = 3 * hidden, bh = std::ptrdiff_t(batch) * hidden, bg3 = batch * g3;
+    gather_output_grads(steps, batch, hidden, d_out, stride_t, stride_b, d_last, d_h);
     for (int t = steps - 1; t >= 0; --t) {
-        const T* before = t ? out + (t - 1) * bh : h0;
+        const T* before = states + t * bh;
         T* earlier = t ? d_h + (t - 1) * bh : carry;
         const bool first = t == 0;  // carry starts empty; d_h[t - 1] holds d out[t - 1]
         for (int b = 0; b < batch; ++b) {
@@ -186,45 +253,104 @@ void gru_backward(int steps, int batch, int hidden, const T* gates, const T* pro
         }
         times(batch, hidden, 3 * hidden, d_rec + t * bg3, w_hh, earlier, T(1));
     }
-}
-
-// Elman (nn.RNN, tanh). In: out[t] holds x_t W_ih^T + b_ih + b_hh; becomes h_t.
-template <typename T>
-void elman_forward(int steps, int batch, int hidden, const T* h0, const T* w_hh, T* out) {
-    const std::ptrdiff_t bh = std::ptrdiff_t(batch) * hidden;
-    const T* h = h0;
-    for (int t = 0; t < steps; ++t) {
-        T* __restrict__ o = out + t * bh;
-        times_transposed(batch, hidden, hidden, h, w_hh, o, T(1));
-        for (std::ptrdiff_t i = 0; i < bh; ++i) o[i] = tanh_of(o[i]);
-        h = o;
+    const std::ptrdiff_t rows = std::ptrdiff_t(steps) * batch;
+    recurrent_weight_grads(rows, 3 * hidden, hidden, d_rec, states, d_w_hh, d_b_hh);
+    // the input products' gradients: the recurrent ones, but n's is not scaled by r
+    for (std::ptrdiff_t r = 0; r < rows; ++r) {
+        T* __restrict__ to = d_rec + r * g3 + 2 * hidden;
+        const T* __restrict__ from = d_h + r * hidden;
+        for (int j = 0; j < hidden; ++j) to[j] = from[j];
     }
+    input_weight_grads(rows, 3 * hidden, features, d_rec, x, w_ih, d_x, d_w_ih, d_b_ih);
 }
 
-// Elman backward. d_pre[t] holds d out[t] (d_last added to the last step) and becomes the
-// gradient of step t's pre-activation; carry = d h0.
+// Elman (nn.RNN, tanh) over a window: states [T+1, B, H] (h0, then every h), last [B, H].
 template <typename T>
-void elman_backward(int steps, int batch, int hidden, const T* out, const T* w_hh, T* d_pre,
-                    T* carry) {
+void elman_forward(int steps, int batch, int hidden, int features, const T* x, const T* w_ih,
+                   const T* b_ih, const T* w_hh, const T* b_hh, const T* h0, T* states,
+                   T* last) {
     const std::ptrdiff_t bh = std::ptrdiff_t(batch) * hidden;
+    input_products(steps * std::ptrdiff_t(batch), hidden, features, x, w_ih, b_ih, b_hh, hidden,
+                   states + bh);
+    std::memcpy(states, h0, sizeof(T) * bh);
+    for (int t = 0; t < steps; ++t) {
+        T* __restrict__ o = states + (t + 1) * bh;
+        times_transposed(batch, hidden, hidden, states + t * bh, w_hh, o, T(1));
+        for (std::ptrdiff_t i = 0; i < bh; ++i) o[i] = tanh_of(o[i]);
+    }
+    std::memcpy(last, states + steps * bh, sizeof(T) * bh);
+}
+
+// Elman backward: d_pre [T, B, H] (scratch) becomes each step's pre-activation gradient, the
+// gradient of both products (so both biases get the same); d_x may be null; carry = d h0.
+template <typename T>
+void elman_backward(int steps, int batch, int hidden, int features, const T* x, const T* w_ih,
+                    const T* w_hh, const T* states, const T* d_out, long stride_t,
+                    long stride_b, const T* d_last, T* d_pre, T* d_x, T* d_w_ih, T* d_b_ih,
+                    T* d_w_hh, T* d_b_hh, T* carry) {
+    const std::ptrdiff_t bh = std::ptrdiff_t(batch) * hidden;
+    gather_output_grads(steps, batch, hidden, d_out, stride_t, stride_b, d_last, d_pre);
     for (int t = steps - 1; t >= 0; --t) {
         T* __restrict__ d = d_pre + t * bh;
-        const T* __restrict__ o = out + t * bh;
+        const T* __restrict__ o = states + (t + 1) * bh;
         for (std::ptrdiff_t i = 0; i < bh; ++i) d[i] *= T(1) - o[i] * o[i];
         if (t)
             times(batch, hidden, hidden, d, w_hh, d_pre + (t - 1) * bh, T(1));
         else
             times(batch, hidden, hidden, d, w_hh, carry, T(0));
     }
+    const std::ptrdiff_t rows = std::ptrdiff_t(steps) * batch;
+    recurrent_weight_grads(rows, hidden, hidden, d_pre, states, d_w_hh, d_b_hh);
+    input_weight_grads(rows, hidden, features, d_pre, x, w_ih, d_x, d_w_ih, d_b_ih);
 }
 
 template <typename T>
-void exp_table(std::ptrdiff_t count, const T* x, T* y, int which) {
-    for (std::ptrdiff_t i = 0; i < count; ++i)
-        y[i] = which == 0 ? exp_of(x[i]) : which == 1 ? tanh_of(x[i]) : sigmoid(x[i]);
+void activation_table(std::ptrdiff_t count, const T* x, T* y, int which) {
+    if (which == 0)
+        for (std::ptrdiff_t i = 0; i < count; ++i) y[i] = exp_of(x[i]);
+    else if (which == 1)
+        for (std::ptrdiff_t i = 0; i < count; ++i) y[i] = tanh_of(x[i]);
+    else
+        for (std::ptrdiff_t i = 0; i < count; ++i) y[i] = sigmoid(x[i]);
 }
 
 }  // namespace
+
+// One entry point per cell, direction and dtype; the Python side passes sizes, then strides
+// (backward), then every buffer, in the order of the templates above.
+#define SWEEPER_ENTRIES(T, SUFFIX)                                                            \
+    void sweeper_gru_forward_##SUFFIX(int steps, int batch, int hidden, int features,         \
+                                      const T* x, const T* w_ih, const T* b_ih,               \
+                                      const T* w_hh, const T* b_hh, const T* h0, T* gates,    \
+                                      T* products, T* states, T* last, T* rec) {              \
+        gru_forward(steps, batch, hidden, features, x, w_ih, b_ih, w_hh, b_hh, h0, gates,     \
+                    products, states, last, rec);                                             \
+    }                                                                                         \
+    void sweeper_gru_backward_##SUFFIX(                                                       \
+        int steps, int batch, int hidden, int features, long stride_t, long stride_b,         \
+        const T* x, const T* w_ih, const T* w_hh, const T* gates, const T* products,          \
+        const T* states, const T* d_out, const T* d_last, T* d_h, T* d_rec, T* d_x,           \
+        T* d_w_ih, T* d_b_ih, T* d_w_hh, T* d_b_hh, T* carry) {                               \
+        gru_backward(steps, batch, hidden, features, x, w_ih, w_hh, gates, products, states,  \
+                     d_out, stride_t, stride_b, d_last, d_h, d_rec, d_x, d_w_ih, d_b_ih,      \
+                     d_w_hh, d_b_hh, carry);                                                  \
+    }                                                                                         \
+    void sweeper_elman_forward_##SUFFIX(int steps, int batch, int hidden, int features,       \
+                                        const T* x, const T* w_ih, const T* b_ih,             \
+                                        const T* w_hh, const T* b_hh, const T* h0,            \
+                                        T* states, T* last) {                                 \
+        elman_forward(steps, batch, hidden, features, x, w_ih, b_ih, w_hh, b_hh, h0, states,  \
+                      last);                                                                  \
+    }                                                                                         \
+    void sweeper_elman_backward_##SUFFIX(                                                     \
+        int steps, int batch, int hidden, int features, long stride_t, long stride_b,         \
+        const T* x, const T* w_ih, const T* w_hh, const T* states, const T* d_out,            \
+        const T* d_last, T* d_pre, T* d_x, T* d_w_ih, T* d_b_ih, T* d_w_hh, T* d_b_hh,        \
+        T* carry) {                                                                           \
+        elman_backward(steps, batch, hidden, features, x, w_ih, w_hh, states, d_out,          \
+                       stride_t, stride_b, d_last, d_pre, d_x, d_w_ih, d_b_ih, d_w_hh,        \
+                       d_b_hh, carry);                                                        \
+    }
 
 extern "C" {
 
@@ -233,53 +359,12 @@ void sweeper_set_gemm(void* s, void* d) {
     dgemm = reinterpret_cast<dgemm_fn>(d);
 }
 
-void sweeper_gru_forward_f32(int steps, int batch, int hidden, float* gates, const float* h0,
-                             const float* w_hh, const float* b_hn, float* products, float* out,
-                             float* rec) {
-    gru_forward(steps, batch, hidden, gates, h0, w_hh, b_hn, products, out, rec);
-}
-
-void sweeper_gru_forward_f64(int steps, int batch, int hidden, double* gates, const double* h0,
-                             const double* w_hh, const double* b_hn, double* products,
-                             double* out, double* rec) {
-    gru_forward(steps, batch, hidden, gates, h0, w_hh, b_hn, products, out, rec);
-}
-
-void sweeper_gru_backward_f32(int steps, int batch, int hidden, const float* gates,
-                              const float* products, const float* h0, const float* out,
-                              const float* w_hh, float* d_h, float* d_rec, float* carry) {
-    gru_backward(steps, batch, hidden, gates, products, h0, out, w_hh, d_h, d_rec, carry);
-}
-
-void sweeper_gru_backward_f64(int steps, int batch, int hidden, const double* gates,
-                              const double* products, const double* h0, const double* out,
-                              const double* w_hh, double* d_h, double* d_rec, double* carry) {
-    gru_backward(steps, batch, hidden, gates, products, h0, out, w_hh, d_h, d_rec, carry);
-}
-
-void sweeper_elman_forward_f32(int steps, int batch, int hidden, const float* h0,
-                               const float* w_hh, float* out) {
-    elman_forward(steps, batch, hidden, h0, w_hh, out);
-}
-
-void sweeper_elman_forward_f64(int steps, int batch, int hidden, const double* h0,
-                               const double* w_hh, double* out) {
-    elman_forward(steps, batch, hidden, h0, w_hh, out);
-}
-
-void sweeper_elman_backward_f32(int steps, int batch, int hidden, const float* out,
-                                const float* w_hh, float* d_pre, float* carry) {
-    elman_backward(steps, batch, hidden, out, w_hh, d_pre, carry);
-}
-
-void sweeper_elman_backward_f64(int steps, int batch, int hidden, const double* out,
-                                const double* w_hh, double* d_pre, double* carry) {
-    elman_backward(steps, batch, hidden, out, w_hh, d_pre, carry);
-}
+SWEEPER_ENTRIES(float, f32)
+SWEEPER_ENTRIES(double, f64)
 
 // the float32 nonlinearities alone (0: exp, 1: tanh, 2: sigmoid), for the tests
 void sweeper_activation_f32(std::ptrdiff_t count, const float* x, float* y, int which) {
-    exp_table(count, x, y, which);
+    activation_table(count, x, y, which);
 }
 
 }  // extern "C"
