@@ -17,6 +17,7 @@ import torch.nn.functional as F
 
 from sweeper.tasks.base import Baseline, Kind, SequenceSet, Split, Task
 from sweeper.training import compiled_steps
+from sweeper.training.compiled_optimizers import COMPILED_OPTIMIZERS
 from sweeper.training.epoch_loop import run_epochs
 from sweeper.training.epoch_record import EpochRecord
 from sweeper.training.models import build_model
@@ -336,23 +337,50 @@ def test_lean_clipping_gives_clip_grad_norms_bits(ratio: float) -> None:
         assert torch.equal(a.grad, b.grad)
 
 
-@pytest.mark.parametrize("name", ["adam", "sgd", "rmsprop"])
-def test_the_fused_optimizers_step_as_torchs_plain_ones(name: str) -> None:
-    # reference: torch's own single-tensor implementation (foreach=False) from the same state
-    params = TrialParams(optimizer=name, lr=1e-2, momentum=0.9, weight_decay=1e-3)
+OPTIMIZER_CASES = [
+    (name, momentum, decay)
+    for name in ("adam", "sgd", "rmsprop")
+    for momentum, decay in ((0.9, 1e-3), (0.0, 0.0))
+    if not (name == "adam" and momentum == 0.0)  # Adam has no momentum setting
+]
+
+
+@pytest.mark.parametrize("revision", [WINDOW, COMPILED])
+@pytest.mark.parametrize(("name", "momentum", "decay"), OPTIMIZER_CASES)
+def test_the_lean_optimizers_step_as_torchs_plain_ones(
+    name: str, momentum: float, decay: float, revision: str
+) -> None:
+    # reference: torch's own single-tensor implementation (foreach=False) from the same state;
+    # window-1 runs torch's fused or foreach kernels, window-2 our compiled updates
+    if revision == COMPILED and compiled_steps.loaded() is None:
+        pytest.skip(f"no compiled kernels here: {compiled_steps.why_not()}")
+    params = TrialParams(optimizer=name, lr=1e-2, momentum=momentum, weight_decay=decay)
     ours, theirs = _float32_grads(seed=3), _float32_grads(seed=3)
     holder = SimpleNamespace(parameters=lambda: iter(ours))  # all build_optimizer reads
-    fast = build_optimizer(params, holder, LATEST)  # type: ignore[arg-type]
+    fast = build_optimizer(params, holder, revision)  # type: ignore[arg-type]
     settings = {**fast.defaults, "foreach": False}
     if "fused" in settings:
         settings["fused"] = None
-    plain = type(fast)(theirs, **settings)
-    assert fast.defaults.get("fused") or fast.defaults.get("foreach")
+    reference = {"adam": torch.optim.Adam, "sgd": torch.optim.SGD}.get(name, torch.optim.RMSprop)
+    plain = reference(theirs, **settings)
+    if revision == WINDOW:
+        assert type(fast) is reference and (fast.defaults.get("fused") or fast.defaults["foreach"])
+    else:
+        assert type(fast) is COMPILED_OPTIMIZERS[name]
     for _ in range(5):
         fast.step()
         plain.step()
     for a, b in zip(ours, theirs, strict=True):
         torch.testing.assert_close(a, b, rtol=1e-6, atol=1e-7)
+    # the state is torch's, under torch's names: a checkpoint loads into torch's class
+    again = reference(_float32_grads(seed=3), **settings)
+    again.load_state_dict(fast.state_dict())
+    assert again.state_dict()["state"].keys() == plain.state_dict()["state"].keys()
+    loaded = again.state_dict()["state"]
+    for index, entry in plain.state_dict()["state"].items():
+        assert loaded[index].keys() == entry.keys()
+        for key, value in entry.items():
+            torch.testing.assert_close(loaded[index][key], value, rtol=1e-6, atol=1e-7)
 
 
 @pytest.mark.parametrize("clip", [0.0, 0.02])

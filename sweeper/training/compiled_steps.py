@@ -37,6 +37,12 @@ _SIGNATURES = {  # the extern "C" functions of step_kernels.cpp: numbers, then b
     "elman_forward": _SIZES + [_POINTER] * 8,
     "elman_backward": _SIZES + _STRIDES + [_POINTER] * 13,
 }
+_COUNT, _DOUBLE = ctypes.c_ssize_t, ctypes.c_double
+_UPDATES = {  # the optimizer updates: element count, buffers (step last), hyperparameters
+    "adam": [_COUNT] + [_POINTER] * 5 + [_DOUBLE] * 5,
+    "rmsprop": [_COUNT] + [_POINTER] * 5 + [_DOUBLE] * 5,
+    "sgd": [_COUNT] + [_POINTER] * 3 + [_INT] + [_DOUBLE] * 3,
+}
 _SUFFIX = {torch.float32: "f32", torch.float64: "f64"}
 
 
@@ -45,7 +51,7 @@ class Kernels:
 
     def __init__(self, library: ctypes.CDLL) -> None:
         self._library = library
-        for name, argtypes in _SIGNATURES.items():
+        for name, argtypes in (_SIGNATURES | _UPDATES).items():
             for suffix in _SUFFIX.values():
                 function = getattr(library, f"sweeper_{name}_{suffix}")
                 function.argtypes = argtypes
@@ -73,6 +79,13 @@ class Kernels:
                 raise ValueError(f"{name}: the kernels read every tensor as contiguous")
         function = getattr(self._library, f"sweeper_{name}_{_SUFFIX[given[0].dtype]}")
         function(*numbers, *(None if t is None else t.data_ptr() for t in tensors))
+
+    def update(self, name: str, param: Tensor, *args: Tensor | int | float | None) -> None:
+        """One optimizer update of ``param`` in place (its dtype picks the entry); tensors in
+        ``args`` (gradient, state, the float32 step count) as pointers, numbers as they are."""
+        function = getattr(self._library, f"sweeper_{name}_{_SUFFIX[param.dtype]}")
+        values = (a.data_ptr() if isinstance(a, Tensor) else a for a in args)
+        function(param.numel(), param.data_ptr(), *values)
 
     def activation(self, x: Tensor, which: str) -> Tensor:
         """exp, tanh or sigmoid of a float32 tensor by the kernels' own formulas (tests)."""

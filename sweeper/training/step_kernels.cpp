@@ -304,6 +304,61 @@ void elman_backward(int steps, int batch, int hidden, int features, const T* x, 
     input_weight_grads(rows, hidden, features, d_pre, x, w_ih, d_x, d_w_ih, d_b_ih);
 }
 
+// Optimizer updates, one parameter tensor a call, with torch's formulas (torch.optim docs;
+// checked against torch's single-tensor implementations by the tests). step is the
+// parameter's float32 step count, advanced here; weight decay is added to the gradient.
+template <typename T>
+void adam_update(std::ptrdiff_t count, T* __restrict__ p, const T* __restrict__ g,
+                 T* __restrict__ m, T* __restrict__ v, float* step, double lr, double beta1,
+                 double beta2, double eps, double decay) {
+    step[0] += 1.0f;
+    const double bias1 = 1.0 - std::pow(beta1, double(step[0]));
+    const double bias2 = std::sqrt(1.0 - std::pow(beta2, double(step[0])));
+    const T size = T(lr / bias1), root2 = T(bias2), b1 = T(1.0 - beta1), b2 = T(beta2);
+    const T keep2 = T(1.0 - beta2), e = T(eps), d = T(decay);
+    for (std::ptrdiff_t i = 0; i < count; ++i) {
+        const T grad = g[i] + d * p[i];
+        m[i] += b1 * (grad - m[i]);
+        v[i] = v[i] * b2 + keep2 * grad * grad;
+        p[i] -= size * m[i] / (std::sqrt(v[i]) / root2 + e);
+    }
+}
+
+template <typename T>
+void rmsprop_update(std::ptrdiff_t count, T* __restrict__ p, const T* __restrict__ g,
+                    T* __restrict__ v, T* __restrict__ buffer, float* step, double lr,
+                    double alpha, double eps, double decay, double momentum) {
+    step[0] += 1.0f;
+    const T a = T(alpha), keep = T(1.0 - alpha), e = T(eps), d = T(decay), rate = T(lr);
+    const T mu = T(momentum);
+    for (std::ptrdiff_t i = 0; i < count; ++i) {
+        const T grad = g[i] + d * p[i];
+        v[i] = v[i] * a + keep * grad * grad;
+        const T scaled = grad / (std::sqrt(v[i]) + e);
+        if (buffer) {
+            buffer[i] = buffer[i] * mu + scaled;
+            p[i] -= rate * buffer[i];
+        } else {
+            p[i] -= rate * scaled;
+        }
+    }
+}
+
+// SGD with momentum (no dampening): the first step's buffer is the gradient itself
+template <typename T>
+void sgd_update(std::ptrdiff_t count, T* __restrict__ p, const T* __restrict__ g,
+                T* __restrict__ buffer, int first, double lr, double decay, double momentum) {
+    const T d = T(decay), rate = T(lr), mu = T(momentum);
+    for (std::ptrdiff_t i = 0; i < count; ++i) {
+        T grad = g[i] + d * p[i];
+        if (buffer) {
+            buffer[i] = first ? grad : buffer[i] * mu + grad;
+            grad = buffer[i];
+        }
+        p[i] -= rate * grad;
+    }
+}
+
 template <typename T>
 void activation_table(std::ptrdiff_t count, const T* x, T* y, int which) {
     if (which == 0)
@@ -361,6 +416,25 @@ void sweeper_set_gemm(void* s, void* d) {
 
 SWEEPER_ENTRIES(float, f32)
 SWEEPER_ENTRIES(double, f64)
+
+#define SWEEPER_UPDATES(T, SUFFIX)                                                            \
+    void sweeper_adam_##SUFFIX(std::ptrdiff_t count, T* p, const T* g, T* m, T* v,            \
+                               float* step, double lr, double beta1, double beta2,            \
+                               double eps, double decay) {                                    \
+        adam_update(count, p, g, m, v, step, lr, beta1, beta2, eps, decay);                   \
+    }                                                                                         \
+    void sweeper_rmsprop_##SUFFIX(std::ptrdiff_t count, T* p, const T* g, T* v, T* buffer,    \
+                                  float* step, double lr, double alpha, double eps,           \
+                                  double decay, double momentum) {                            \
+        rmsprop_update(count, p, g, v, buffer, step, lr, alpha, eps, decay, momentum);        \
+    }                                                                                         \
+    void sweeper_sgd_##SUFFIX(std::ptrdiff_t count, T* p, const T* g, T* buffer, int first,   \
+                              double lr, double decay, double momentum) {                     \
+        sgd_update(count, p, g, buffer, first, lr, decay, momentum);                          \
+    }
+
+SWEEPER_UPDATES(float, f32)
+SWEEPER_UPDATES(double, f64)
 
 // the float32 nonlinearities alone (0: exp, 1: tanh, 2: sigmoid), for the tests
 void sweeper_activation_f32(std::ptrdiff_t count, const float* x, float* y, int which) {

@@ -24,6 +24,8 @@ import torch.nn.functional as F
 from sweeper.errors import Interrupted
 from sweeper.seeds import derive_seed
 from sweeper.tasks.base import Kind, SequenceSet, Task
+from sweeper.training import compiled_steps
+from sweeper.training.compiled_optimizers import COMPILED_OPTIMIZERS
 from sweeper.training.epoch_record import EpochRecord, summarize_norms
 from sweeper.training.models import ModelBuilder, Recurrent, State, build_model
 from sweeper.training.numerics import TORCH_MODULES, building, current_revision, numerics
@@ -90,12 +92,21 @@ def scale_above(
 def build_optimizer(
     params: TrialParams, model: Recurrent, revision: str | None = None
 ) -> torch.optim.Optimizer:
-    """The trial's optimizer; from revision window-1 on with torch's fused (or foreach)
-    kernels, a few calls a step instead of a dozen small ones per parameter tensor."""
+    """The trial's optimizer; in revision window-1 with torch's fused (or foreach) kernels, a
+    few calls a step instead of a dozen small ones per parameter tensor; from window-2 on with
+    our compiled updates (float32 and float64 weights on the CPU)."""
     weights = list(model.parameters())
     lr, decay = params.lr, params.weight_decay
-    lean = numerics(current_revision() if revision is None else revision).lean_step
-    fused = True if lean else None  # None: torch's default, as before window-1
+    chosen = numerics(current_revision() if revision is None else revision)
+    kernels = compiled_steps.loaded() if chosen.compiled_steps else None
+    if kernels is not None and weights and kernels.supports(*weights):
+        # window-2: the update of each tensor in one compiled loop (compiled_optimizers.py)
+        kind = COMPILED_OPTIMIZERS[params.optimizer]
+        options: dict[str, Any] = {"lr": lr, "weight_decay": decay}
+        if params.optimizer != "adam":
+            options["momentum"] = params.momentum
+        return kind(weights, **options)
+    fused = True if chosen.lean_step else None  # None: torch's default, as before window-1
     if params.optimizer == "sgd":
         return torch.optim.SGD(
             weights, lr=lr, momentum=params.momentum, weight_decay=decay, fused=fused
