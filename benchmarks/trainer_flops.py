@@ -27,8 +27,8 @@ LSTM runs torch's nn.LSTM (oneDNN) in all, so it is measured once, with the late
 Two more figures, each from child processes so that the two paths do not share a heap:
 - the sweep: search_spaces/copy_gru.toml with the random sampler (its draws do not depend on
   the results, so both runs train the same trials) and no stopping rule (so the same epochs),
-  one worker on one thread, run by ``sweeper run`` with our recurrence and with torch's;
-  wall time new over old.
+  one worker on one thread, run by ``sweeper run`` with the latest trainer and with torch's
+  modules, in the order new, old, old, new; summed wall time new over old.
 - memory: the second epoch of a width-256 trial with unroll 100 (2 windows, batch 32): the
   growth of the peak RSS (VmHWM, reset before the epoch, after malloc_trim hands the freed
   heap back) over the RSS right before it, ours against torch's; and the bytes one window's
@@ -352,14 +352,25 @@ def report(rows: list[tuple], peak: float, batch: int) -> list[str]:
 
 
 def report_sweep(quick: bool) -> list[str]:
+    """Ours, torch's, torch's, ours (so a load that drifts during the run weighs on both);
+    the ratio of the summed wall times."""
+    walls: dict[str, list[float]] = {"ours": [], "torch": []}
+    trials: dict[str, list[str]] = {}
+    epochs: dict[str, int] = {}
+    order = ("ours", "torch") if quick else ("ours", "torch", "torch", "ours")
     with tempfile.TemporaryDirectory() as scratch:
-        folder = Path(scratch)
-        new, new_trials, new_epochs = sweep_seconds(folder, "ours", quick)
-        old, old_trials, old_epochs = sweep_seconds(folder, "torch", quick)
-    same = "same trials" if new_trials == old_trials else "DIFFERENT trials"
-    print(f"{SWEEP_SPEC.name}, random sampler, 1 worker, 1 thread: ours {new:.1f} s")
-    print(f"  ({new_epochs} epochs), torch's {old:.1f} s ({old_epochs} epochs), {same}")
-    ratio = new / old
+        for number, path in enumerate(order):
+            folder = Path(scratch) / str(number)
+            folder.mkdir()
+            wall, trials[path], epochs[path] = sweep_seconds(folder, path, quick)
+            walls[path].append(wall)
+    same = "same trials" if trials["ours"] == trials["torch"] else "DIFFERENT trials"
+    print(f"{SWEEP_SPEC.name}, random sampler, 1 worker, 1 thread, in the order {order}:")
+    ours_walls = ", ".join(f"{w:.1f}" for w in walls["ours"])
+    torch_walls = ", ".join(f"{w:.1f}" for w in walls["torch"])
+    print(f"  ours {ours_walls} s ({epochs['ours']} epochs), torch's {torch_walls} s")
+    print(f"  ({epochs['torch']} epochs), {same}")
+    ratio = sum(walls["ours"]) / sum(walls["torch"])
     return [f"sweep_wall_ratio_gru_example {ratio:.3f} (target <= {SWEEP_TARGET})"]
 
 
