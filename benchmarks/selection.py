@@ -41,6 +41,7 @@ Tasks: the adding problem and delayed recall (built in), and the yearly sunspot 
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import io
 import json
 import math
@@ -368,6 +369,12 @@ def run_task(task: str, setting: Setting, folder: Path, say: Callable[[str], Non
     )
 
 
+def _share(part: list[float], whole: list[float]) -> str:
+    """``part``'s sum over ``whole``'s: how much of the regret over all seeds it makes."""
+    total = sum(whole)
+    return f"{sum(part) / total:.2f}" if total > 0 else "-"
+
+
 def _minus(a: list[float], b: list[float]) -> list[float]:
     return [x - y for x, y in zip(a, b, strict=True)]
 
@@ -394,6 +401,7 @@ def main() -> None:
     parser.add_argument(
         "--seed-offset", type=int, default=0, help="study seeds start after this number"
     )
+    parser.add_argument("--json", help="write every study seed's figures to this file")
     args = parser.parse_args()
     base = QUICK if args.quick else FULL
     setting = Setting(
@@ -440,14 +448,19 @@ def main() -> None:
             *(f"{median(v):.4g}" for v in (r.search_a, _minus(r.regret_a, r.search_a))),
             *(f"{median(v):.4g}" for v in (r.search_b, _minus(r.regret_b, r.search_b))),
             f"{median(r.regret_fresh):.4g}",
+            f"{_share(r.search_a, r.regret_a)} / {_share(r.search_b, r.regret_b)}",
         ]
         for r in results
     ]
     print_table(
         ["task", "search (a)", "selection (a)", "search (b)", "selection (b)",
-         "regret (b) fresh-only"],
+         "regret (b) fresh-only", "search's share of all regret (a) / (b)"],
         parts,
     )  # fmt: skip
+    if args.json:
+        Path(args.json).write_text(
+            json.dumps([dataclasses.asdict(r) for r in results], indent=1), encoding="utf-8"
+        )
     print(f"wall seconds: {time.perf_counter() - started:.0f}")
     worst = max(
         r.median_b / r.median_a if r.median_a > 0 else (0.0 if r.median_b == 0 else math.inf)
