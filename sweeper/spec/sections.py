@@ -131,8 +131,7 @@ class ConfirmSection:
     each (0 configurations: no confirmation)."""
 
     configurations: int = 3
-    # one fresh seed beside the searched trial's: benchmarks/selection.py (docs/benchmarks.md)
-    seeds: int = 1
+    seeds: int = 3
 
     def __post_init__(self) -> None:
         _check_field_types(self, "confirm")
