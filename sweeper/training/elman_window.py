@@ -16,6 +16,7 @@ from typing import Any
 import torch
 from torch.autograd.function import once_differentiable
 
+from sweeper.training.compiled_layer_grads import LayerGrads, flat_inputs, output_grad
 from sweeper.training.compiled_steps import Kernels
 from sweeper.training.window_grads import input_grads, recurrent_grads
 
@@ -82,8 +83,7 @@ def _compiled_forward(
     """The window through step_kernels.cpp: one call, every product and step inside."""
     steps, batch, features = x.shape
     hidden = w_hh.shape[1]
-    flat = x.reshape(steps * batch, features).contiguous()
-    w_ih = w_ih.contiguous()
+    flat, w_ih = flat_inputs(x), w_ih.contiguous()
     states = flat.new_empty(steps + 1, batch, hidden)  # h0, then every step's state
     last = flat.new_empty(batch, hidden)
     sizes = (steps, batch, hidden, features)
@@ -95,20 +95,11 @@ def _compiled_forward(
 def _compiled_backward(ctx: Any, d_out: Tensor, d_last: Tensor) -> tuple[Tensor | None, ...]:
     flat, w_ih, w_hh, states = ctx.saved_tensors
     steps, batch, hidden = d_out.shape
-    features = flat.shape[1]
-    if d_out.stride(-1) != 1:
-        d_out = d_out.contiguous()
+    d_out, strides = output_grad(d_out)
     need = ctx.needs_input_grad
-    d_x = flat.new_empty(flat.shape) if need[0] else None
-    grads = [torch.empty_like(w) for w in (w_ih, w_hh)]
-    biases = [flat.new_empty(hidden) for _ in range(2)]
-    carry = flat.new_empty(batch, hidden)
-    numbers = (steps, batch, hidden, features, d_out.stride(0), d_out.stride(1))
-    d_pre = flat.new_empty(steps, batch, hidden)
-    buffers: tuple[Tensor | None, ...] = (flat, w_ih, w_hh, states, d_out, d_last.contiguous())
-    buffers += (d_pre, d_x)
-    buffers += (grads[0], biases[0], grads[1], biases[1], carry)
-    ctx.kernels.call("elman_backward", numbers, *buffers, strided=4)
-    d_x = d_x.view(steps, batch, features) if d_x is not None else None
-    wanted = (d_x, carry, grads[0], grads[1], biases[0], biases[1])
-    return (*(g if want else None for g, want in zip(wanted, need, strict=False)), None)
+    grads = LayerGrads.empty(flat, w_ih, w_hh, batch, need[0])
+    d_pre = flat.new_empty(steps, batch, hidden)  # scratch
+    numbers = (steps, batch, hidden, flat.shape[1], *strides)
+    inputs = (flat, w_ih, w_hh, states, d_out, d_last.contiguous(), d_pre)
+    ctx.kernels.call("elman_backward", numbers, *inputs, *grads.buffers(), strided=4)
+    return grads.returned(need, torch.Size((steps, batch, flat.shape[1])))
