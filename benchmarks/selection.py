@@ -3,6 +3,7 @@
     python benchmarks/selection.py                 # 3 tasks, 7 study seeds each
     python benchmarks/selection.py --quick         # a smoke run: tiny tasks, 2 seeds
     python benchmarks/selection.py --seeds 3 --trials 8 --epochs 5   # a reduced run
+    python benchmarks/selection.py --confirm 2,1 --seed-offset 7     # other study seeds
 
 Pipelines, on the same task, search space and study seed:
 
@@ -10,9 +11,9 @@ Pipelines, on the same task, search space and study seed:
     rule; the best trial is the choice. On top of (b)'s search budget it gets the compute of
     (b)'s confirmation trials as extra trials (that compute over the mean compute of (b)'s
     searched trials), so the two spend about the same; ``compute_ratio`` says how close.
-(b) the new default: the spec leaves stopping and confirmation at their defaults and asks
-    for the best-epoch score (``study.score``, when this checkout has it); the confirmed
-    choice (``sweeper.results.choice``) is the choice.
+(b) the project's default: the spec leaves the score, stopping and confirmation at their
+    defaults (``--confirm`` sets the confirmation); the confirmed choice
+    (``sweeper.results.choice``) is the choice.
 
 True quality of a configuration: the mean held-out loss over 5 fresh seeds (the same 5 for
 every configuration), each trained on the task's training sequences for the spec's epochs
@@ -25,6 +26,15 @@ of the per-seed ratio (a)/(b). Last lines: ``worst_regret_ratio R`` (the largest
 of (b)'s median regret over (a)'s) and ``compute_ratio C`` ((b)'s total training compute
 over (a)'s).
 
+What a regret is made of, per task (medians over the study seeds): the search part, the best
+true quality among a pipeline's k candidates (for (b) its confirmed configurations, for (a)
+its k best trials by searched value, k the same) minus the reference, which no choice among
+them can undo; and the selection part, the chosen one's true quality minus that best. The
+same table shows (b) choosing by its confirmation seeds alone (``fresh-only``: the searched
+trial's own value left out, since that value is what made it a candidate), from the same
+studies, and ``best_possible_choice_worst_regret_ratio``: the worst ratio (b) would reach
+if it chose the truly best of its candidates on every seed, a bound no choice rule beats.
+
 Tasks: the adding problem and delayed recall (built in), and the yearly sunspot numbers
 1700-2008 that statsmodels ships (``statsmodels.datasets.sunspots``; no download).
 """
@@ -32,6 +42,7 @@ Tasks: the adding problem and delayed recall (built in), and the yearly sunspot 
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import io
 import json
 import math
@@ -109,6 +120,7 @@ class Setting:
     train: int  # training sequences of the generated tasks
     length: int
     confirm: tuple[int, int] | None = None  # (b)'s [confirm] (configurations, seeds); None: default
+    seed_offset: int = 0  # study seeds are offset + 1 ... offset + seeds
 
 
 FULL = Setting(seeds=7, trials=12, epochs=8, train=384, length=20)
@@ -116,13 +128,18 @@ QUICK = Setting(seeds=2, trials=3, epochs=2, train=32, length=8)
 
 
 def score_support() -> bool:
-    """Whether this checkout knows ``study.score`` (the trial score of the new default)."""
-    text = '[study]\nname = "probe"\nscore = "best_epoch"\n[task]\nkind = "adding"\n'
+    """Whether this checkout knows ``study.score`` ((a) asks for the last epoch's)."""
+    text = '[study]\nname = "probe"\nscore = "last_epoch"\n[task]\nkind = "adding"\n'
     try:
         parse_spec(text, "<probe>")
     except SpecError:
         return False
     return True
+
+
+def default_score() -> str:
+    text = '[study]\nname = "probe"\n[task]\nkind = "adding"\n'
+    return str(getattr(parse_spec(text, "<probe>").study, "score", "last_epoch"))
 
 
 def spec_text(
@@ -132,8 +149,8 @@ def spec_text(
     if pipeline == "a":
         study = 'score = "last_epoch"\n' if scores else ""
         tail = '[stopping]\nrule = "asha"\n\n[confirm]\nconfigurations = 0\n'
-    else:
-        study = 'score = "best_epoch"\n' if scores else ""
+    else:  # the project's defaults: no score, stopping or confirmation keys
+        study = ""
         tail = ""
         if setting.confirm is not None:
             tail = "[confirm]\nconfigurations = {}\nseeds = {}\n".format(*setting.confirm)
@@ -238,6 +255,9 @@ class Seeded:
     tied: bool  # (b) said its top configurations cannot be told apart
     runner_up: dict[str, Any] | None  # (b)'s second confirmed configuration
     trials_a: int  # searched trials (a) ran
+    candidates_b: list[dict[str, Any]]  # (b)'s confirmed configurations, best mean first
+    fresh_b: dict[str, Any]  # (b)'s choice by its confirmation seeds alone
+    candidates_a: list[dict[str, Any]]  # (a)'s best trials by searched value, as many
 
 
 def one_seed(task: str, seed: int, setting: Setting, folder: Path) -> tuple[Seeded, Spec]:
@@ -255,9 +275,19 @@ def one_seed(task: str, seed: int, setting: Setting, folder: Path) -> tuple[Seed
         for t in ranked_searched(study.get_trials(deepcopy=False), spec)[:TOP]
     ]
     runner_up = dict(choice.candidates[1].params) if len(choice.candidates) > 1 else None
+    candidates = [dict(c.params) for c in choice.candidates] or [dict(choice.params)]
+    fresh = [c for c in choice.candidates if c.seeds > 1]
+    sign = 1.0 if spec_b.study.better == "lower" else -1.0
+    fresh_b = (
+        dict(min(fresh, key=lambda c: (sign * float(np.mean(c.values[1:])), c.trial)).params)
+        if fresh
+        else dict(choice.params)
+    )
+    ranked_a = ranked_searched(study_a.get_trials(deepcopy=False), spec_a)
     seeded = Seeded(
         dict(best_a.params), dict(choice.params), compute_of(study_a), compute_b, top,
         bool(choice.tied_with), runner_up, len(study_a.get_trials(deepcopy=False)),
+        candidates, fresh_b, [dict(t.params) for t in ranked_a[: len(candidates)]],
     )  # fmt: skip
     return seeded, spec_b
 
@@ -272,6 +302,9 @@ class TaskResult:
     close: int  # seeds whose top two confirmed configurations are truly within a standard error
     close_flagged: int  # of those, the ones (b) said cannot be told apart
     trials_a: float  # mean trials of (a)
+    search_a: list[float]  # best true quality among (a)'s candidates, minus the reference
+    search_b: list[float]
+    regret_fresh: list[float]  # (b) choosing by its confirmation seeds alone
 
     @property
     def median_a(self) -> float:
@@ -293,7 +326,7 @@ class TaskResult:
 def run_task(task: str, setting: Setting, folder: Path, say: Callable[[str], None]) -> TaskResult:
     seeded: list[Seeded] = []
     spec: Spec | None = None
-    for seed in range(1, setting.seeds + 1):
+    for seed in range(setting.seed_offset + 1, setting.seed_offset + setting.seeds + 1):
         started = time.perf_counter()
         one, spec = one_seed(task, seed, setting, folder)
         seeded.append(one)
@@ -302,9 +335,9 @@ def run_task(task: str, setting: Setting, folder: Path, say: Callable[[str], Non
     truth = truth_for(task, spec, folder)
     pooled = sorted((p for s in seeded for p in s.top), key=lambda item: item[0])
     pool = {key_of(params): params for _, params in pooled[:TOP]}
-    for s in seeded:
-        pool.setdefault(key_of(s.chosen_a), s.chosen_a)
-        pool.setdefault(key_of(s.chosen_b), s.chosen_b)
+    for s in seeded:  # every configuration whose regret is reported
+        for params in (s.chosen_a, s.chosen_b, s.fresh_b, *s.candidates_a, *s.candidates_b):
+            pool.setdefault(key_of(params), params)
     started = time.perf_counter()
     reference = min(truth.mean(params) for params in pool.values())
     close = flagged = 0
@@ -318,6 +351,10 @@ def run_task(task: str, setting: Setting, folder: Path, say: Callable[[str], Non
             flagged += s.tied
     seconds = time.perf_counter() - started
     say(f"  {task}: true quality of {len(truth.cache)} configurations, {seconds:.0f} s")
+
+    def best_of(candidates: list[dict[str, Any]]) -> float:
+        return min(truth.mean(params) for params in candidates) - reference
+
     return TaskResult(
         task,
         [truth.mean(s.chosen_a) - reference for s in seeded],
@@ -327,7 +364,20 @@ def run_task(task: str, setting: Setting, folder: Path, say: Callable[[str], Non
         close,
         flagged,
         float(np.mean([s.trials_a for s in seeded])),
+        [best_of(s.candidates_a) for s in seeded],
+        [best_of(s.candidates_b) for s in seeded],
+        [truth.mean(s.fresh_b) - reference for s in seeded],
     )
+
+
+def _share(part: list[float], whole: list[float]) -> str:
+    """``part``'s sum over ``whole``'s: how much of the regret over all seeds it makes."""
+    total = sum(whole)
+    return f"{sum(part) / total:.2f}" if total > 0 else "-"
+
+
+def _minus(a: list[float], b: list[float]) -> list[float]:
+    return [x - y for x, y in zip(a, b, strict=True)]
 
 
 def write_sunspots(folder: Path) -> None:
@@ -349,23 +399,25 @@ def main() -> None:
     parser.add_argument("--epochs", type=int, help="epochs per trial")
     parser.add_argument("--tasks", default=",".join(TASKS), help="comma-separated task names")
     parser.add_argument("--confirm", help="(b)'s confirmation as CONFIGURATIONS,SEEDS")
+    parser.add_argument(
+        "--seed-offset", type=int, default=0, help="study seeds start after this number"
+    )
+    parser.add_argument("--json", help="write every study seed's figures to this file")
     args = parser.parse_args()
     base = QUICK if args.quick else FULL
     setting = Setting(
         args.seeds or base.seeds, args.trials or base.trials, args.epochs or base.epochs,
         base.train, base.length,
         tuple(int(v) for v in args.confirm.split(",")) if args.confirm else None,  # type: ignore[arg-type]
+        args.seed_offset,
     )  # fmt: skip
     torch.set_num_threads(1)
     print(machine_line())
-    scores = (
-        "best_epoch score"
-        if score_support()
-        else "no study.score in this checkout: both score by the last epoch"
-    )
+    first = setting.seed_offset + 1
     print(
-        f"setting: {setting.seeds} study seeds, {setting.trials} searched trials for (b), "
-        f"{setting.epochs} epochs, {TRUTH_SEEDS} seeds of true quality; (b): {scores}; "
+        f"setting: study seeds {first}-{first + setting.seeds - 1}, {setting.trials} searched "
+        f"trials for (b), {setting.epochs} epochs, {TRUTH_SEEDS} seeds of true quality; "
+        f"(b): the default score ({default_score()}); "
         f"(b)'s confirmation: {setting.confirm or 'the default'}"
     )
     results = []
@@ -377,8 +429,8 @@ def main() -> None:
             results.append(run_task(task, setting, folder, lambda line: print(line, flush=True)))
     rows = [
         [
-            r.name, r.median_a, r.median_b, r.median_ratio(), f"{r.close_flagged}/{r.close}",
-            r.compute_b / max(r.compute_a, 1e-9), r.trials_a,
+            r.name, f"{r.median_a:.4g}", f"{r.median_b:.4g}", r.median_ratio(),
+            f"{r.close_flagged}/{r.close}", r.compute_b / max(r.compute_a, 1e-9), r.trials_a,
         ]
         for r in results
     ]  # fmt: skip
@@ -387,12 +439,45 @@ def main() -> None:
          "close pairs flagged", "compute (b)/(a)", "trials (a)"],
         rows,
     )  # fmt: skip
+    print()
+    print("what the regret is made of (medians over the study seeds; search part: best true")
+    print("quality among the pipeline's candidates minus the reference; selection part: the")
+    print("chosen one's regret minus the search part)")
+    parts = [
+        [
+            r.name,
+            *(f"{median(v):.4g}" for v in (r.search_a, _minus(r.regret_a, r.search_a))),
+            *(f"{median(v):.4g}" for v in (r.search_b, _minus(r.regret_b, r.search_b))),
+            f"{median(r.regret_fresh):.4g}",
+            f"{_share(r.search_a, r.regret_a)} / {_share(r.search_b, r.regret_b)}",
+        ]
+        for r in results
+    ]
+    print_table(
+        ["task", "search (a)", "selection (a)", "search (b)", "selection (b)",
+         "regret (b) fresh-only", "search's share of all regret (a) / (b)"],
+        parts,
+    )  # fmt: skip
+    if args.json:
+        Path(args.json).write_text(
+            json.dumps([dataclasses.asdict(r) for r in results], indent=1), encoding="utf-8"
+        )
     print(f"wall seconds: {time.perf_counter() - started:.0f}")
     worst = max(
         r.median_b / r.median_a if r.median_a > 0 else (0.0 if r.median_b == 0 else math.inf)
         for r in results
     )
     compute = sum(r.compute_b for r in results) / max(sum(r.compute_a for r in results), 1e-9)
+    fresh = max(
+        median(r.regret_fresh) / r.median_a
+        if r.median_a > 0
+        else (0.0 if median(r.regret_fresh) == 0 else math.inf)
+        for r in results
+    )
+    # (b) choosing, on every seed, the truly best of its candidates: no rule does better
+    oracle = max(median(r.search_b) / r.median_a if r.median_a > 0 else math.inf for r in results)
+    print(f"fresh_only_worst_regret_ratio {fresh:.3f}")
+    print(f"best_possible_choice_worst_regret_ratio {oracle:.3f}")
     print(f"worst_regret_ratio {worst:.3f}")
     print(f"compute_ratio {compute:.3f}")
 

@@ -186,6 +186,24 @@ def test_a_higher_is_better_study_confirms_its_highest_configurations() -> None:
     ]  # fmt: skip
 
 
+def test_by_default_the_best_three_configurations_get_one_fresh_seed_each() -> None:
+    # chosen by benchmarks/selection.py (docs/benchmarks.md): at equal compute every fresh
+    # seed costs the search a trial, so the default confirms three with two seeds each
+    spec = parse_spec(
+        '[study]\nname = "d"\n[task]\nkind = "adding"\n[search]\nlr = { between = [0.001, 0.1] }\n',
+        "<d>",
+    )
+    trials = []
+    for number, value in enumerate([0.5, 0.2, 0.9, 0.4, 0.3]):
+        trial = optuna.trial.create_trial(
+            value=value, params={"lr": 0.001 * (number + 1)},
+            distributions={"lr": FloatDistribution(0.001, 0.1)},
+        )  # fmt: skip
+        trial.number = number
+        trials.append(trial)
+    assert [(p.searched, p.round) for p in plan(trials, spec)] == [(1, 1), (4, 1), (3, 1)]
+
+
 @pytest.mark.parametrize(
     ("tied", "words"), [((3,), "from trial 3:"), ((3, 13), "from trials 3, 13:")]
 )

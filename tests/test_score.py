@@ -148,9 +148,6 @@ lr = 0.01
 
 [stopping]
 rule = "none"
-
-[confirm]
-configurations = 0  # no launcher runs here to queue confirmation trials
 """
 
 

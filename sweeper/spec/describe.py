@@ -66,7 +66,7 @@ def _confirmation(spec: Spec) -> str:
         return "off: the best trial is the choice, from one seed"
     return (
         f"the best {confirm.configurations} configurations again with {confirm.seeds} fresh "
-        f"seeds each, after the budget and outside it (up to "
+        f"seed{'s' if confirm.seeds > 1 else ''} each, after the budget and outside it (up to "
         f"{confirm.configurations * confirm.seeds} more trials)"
     )
 

@@ -14,10 +14,11 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+import optuna
 from optuna.trial import FrozenTrial, TrialState
 
 from sweeper.spec.sections import Spec
-from sweeper.store.attrs import TrialInfo
+from sweeper.store.attrs import TrialInfo, confirmation_user_attrs
 from sweeper.sweep.distinct_sampler import config_key
 
 
@@ -88,3 +89,17 @@ def _without(
             continue
         covered.add(Planned(info.confirms, info.confirm_round))
     return [item for item in plan(trials, spec) if item not in covered]
+
+
+def queue_missing(study: optuna.Study, spec: Spec, trials: Sequence[FrozenTrial]) -> int:
+    """Queue every ``missing`` confirmation trial; the number queued.
+
+    The caller holds the study's lease (``sweeper.sweep.lease``) and read ``trials`` after
+    taking it: two processes that queue at once would queue each round twice.
+    """
+    by_number = {t.number: t for t in trials}
+    due = missing(trials, spec)
+    for item in due:
+        params = by_number[item.searched].params
+        study.enqueue_trial(params, user_attrs=confirmation_user_attrs(item.searched, item.round))
+    return len(due)

@@ -32,7 +32,6 @@ from sweeper.store.attrs import (
     StudyInfo,
     StudyLaunch,
     TrialInfo,
-    confirmation_user_attrs,
     continuation_system_attrs,
     continuation_user_attrs,
     set_stop_request,
@@ -393,16 +392,7 @@ def top_up(study: optuna.Study, spec: Spec) -> int:
         return need
     if not search_over(trials, spec):
         return 0
-    return _queue_confirmations(study, spec, trials)
-
-
-def _queue_confirmations(study: optuna.Study, spec: Spec, trials: list[FrozenTrial]) -> int:
-    by_number = {t.number: t for t in trials}
-    due = confirmation.missing(trials, spec)
-    for item in due:
-        params = by_number[item.searched].params
-        study.enqueue_trial(params, user_attrs=confirmation_user_attrs(item.searched, item.round))
-    return len(due)
+    return confirmation.queue_missing(study, spec, trials)
 
 
 def _queue_grid_points(

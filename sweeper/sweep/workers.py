@@ -38,6 +38,7 @@ from sweeper.store.optuna_internals import (
     set_heartbeat,
     trial_id,
 )
+from sweeper.sweep import confirmation, lease
 from sweeper.sweep.cores import share_of_cores
 from sweeper.sweep.pool import LocalPool, collector_paused
 from sweeper.sweep.runner import (
@@ -54,6 +55,7 @@ from sweeper.sweep.study import (
     make_sampler,
     quiet_optuna,
     request_stop,
+    search_over,
     stop_requested,
     tally,
     work_left,
@@ -63,6 +65,8 @@ from sweeper.training.trial_run import TrainingInterrupted
 
 IDLE_POLL_SECONDS = 0.1  # a poll takes about 1.5 ms; the last trial's end is seen sooner
 IDLE_GIVE_UP_SECONDS = 120.0
+# an idle worker's attempts to queue confirmation trials: each is a write (the lease)
+CONFIRM_QUEUE_SECONDS = 1.0
 STOP_POLL_SECONDS = 1.0
 MAX_POOL_RESTARTS = 5
 
@@ -203,6 +207,7 @@ def _claim_and_run(
     """Claim and run trials until the budget is met or a stop; the number run."""
     done = 0
     idle_since = time.monotonic()
+    queue_tried = -math.inf
     while not stop_event.is_set() and stop_requested(study) is None:
         claimed = retry_locked(lambda: claim_waiting_trial(study))
         if claimed is None:
@@ -210,6 +215,12 @@ def _claim_and_run(
             waited = time.monotonic() - idle_since
             if budget_met(trials, spec) or (waited > IDLE_GIVE_UP_SECONDS and not _busy(trials)):
                 break
+            if time.monotonic() - queue_tried >= CONFIRM_QUEUE_SECONDS and _confirmation_due(
+                trials, spec
+            ):
+                queue_tried = time.monotonic()
+                if queue_confirmations(study, spec, f"{context.worker}:confirmation"):
+                    continue  # claim one at once
             time.sleep(IDLE_POLL_SECONDS)
             continue
         if _give_back_if_surplus(study, spec, claimed):
@@ -221,6 +232,36 @@ def _claim_and_run(
         done += 1
         idle_since = time.monotonic()
     return done
+
+
+def _confirmation_due(trials: list, spec: Spec) -> bool:
+    return search_over(trials, spec) and bool(confirmation.missing(trials, spec))
+
+
+def queue_confirmations(study: optuna.Study, spec: Spec, holder: str) -> int:
+    """Queue the confirmation trials the search's end calls for; the number queued.
+
+    A worker does this itself, so that workers without a launcher (``sweeper worker`` on a
+    shared study, or a launcher that died) do not wait for a coordinator. It queues under
+    the study's lease, as the coordinator does: whoever takes it reads the trials again and
+    queues only what is still missing, so two workers that find the search over at the same
+    moment queue each trial once. While a live coordinator holds the lease, this queues
+    nothing and the coordinator's next step queues them.
+    """
+    engine = engine_of(study)
+    timing = HeartbeatTiming(spec.study.heartbeat)
+    if not lease.acquire(engine, study.study_name, holder, timing.lease_seconds):
+        return 0
+    try:
+        trials = study.get_trials(deepcopy=False)
+        if not search_over(trials, spec):
+            return 0
+        # read again on a retry: the trials queued before the lock error stand for their rounds
+        return retry_locked(
+            lambda: confirmation.queue_missing(study, spec, study.get_trials(deepcopy=False))
+        )
+    finally:
+        lease.release(engine, study.study_name, holder)
 
 
 def _busy(trials: list) -> bool:
